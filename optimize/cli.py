@@ -1,0 +1,147 @@
+"""The ``tunnelsmith`` command: a thin layer over the Python API.
+
+Exit status: 0 success, 1 internal error, 2 bad input (one paragraph naming the file,
+the key and the fix, no traceback), 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import re
+import sys
+from pathlib import Path
+
+from optimize.errors import InputError
+
+EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
+
+
+def parse_duration_s(text: str) -> float:
+    """``"8h"``, ``"90m"``, ``"45s"``, ``"1h30m"`` or plain seconds → seconds."""
+    match = re.fullmatch(r"\s*(?:(\d+(?:\.\d+)?)h)?\s*(?:(\d+(?:\.\d+)?)m)?\s*(?:(\d+(?:\.\d+)?)s?)?\s*", text)
+    if not text.strip() or match is None or not any(match.groups()):
+        raise InputError(
+            "command line", "--timeout", f"cannot read the duration {text!r}",
+            "give hours, minutes or seconds, e.g. --timeout 8h, --timeout 90m or --timeout 1h30m",
+        )
+    hours, minutes, seconds = (float(g) if g else 0.0 for g in match.groups())
+    return 3600.0 * hours + 60.0 * minutes + seconds
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a number >= 1, got {value}")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="tunnelsmith",
+        description="Design tunneling layer stacks: solve one stack, run optimisation campaigns, "
+        "study growth tolerance.",
+    )
+    parser.add_argument("--version", action="version", version=f"tunnelsmith {software_version()}")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    solve = commands.add_parser("solve", help="transmission, levels, I-V and metrics of one stack")
+    solve.add_argument("stack", type=Path, metavar="STACK.toml")
+    solve.add_argument("--out", type=Path, help="output directory (default runs/<file stem>/)")
+
+    opt = commands.add_parser("optimize", help="start or resume a campaign")
+    opt.add_argument("campaign", type=Path, metavar="CAMPAIGN.toml")
+    opt.add_argument("--out", type=Path, help="run directory (default runs/<campaign name>/)")
+    opt.add_argument("--trials", type=_positive_int, help="total finished trials (overrides [search] trials)")
+    opt.add_argument("--timeout", help="stop after this wall time, e.g. 8h, 90m, 1h30m")
+    opt.add_argument("--workers", type=_positive_int, default=1, help="local worker processes")
+    opt.add_argument("--storage", help="Optuna RDB URL, e.g. postgresql+psycopg://user@host/db")
+    opt.add_argument("--quiet", action="store_true", help="no progress bar; one log line per batch")
+
+    front = commands.add_parser("front", help="rebuild front, trial table and plots from the storage")
+    front.add_argument("run_dir", type=Path, metavar="RUN_DIR")
+    front.add_argument("--storage", help="Optuna RDB URL of the campaign (default: the run's journal)")
+    front.add_argument("--quiet", action="store_true")
+
+    tol = commands.add_parser("tolerance", help="growth-error Monte Carlo: yield and sensitivities")
+    tol.add_argument("target", type=Path, metavar="STACK.toml|RUN_DIR")
+    tol.add_argument("--design", type=int, help="trial number of a front design (with RUN_DIR)")
+    tol.add_argument("--samples", type=_positive_int, help="number of growth samples")
+    tol.add_argument("--out", type=Path, help="output directory")
+    tol.add_argument("--storage", help="Optuna RDB URL (with RUN_DIR of a database campaign)")
+    tol.add_argument("--quiet", action="store_true")
+
+    check = commands.add_parser("check", help="validate a stack or campaign file and show its search space")
+    check.add_argument("file", type=Path, metavar="FILE.toml")
+
+    materials = commands.add_parser("materials", help="the material table with the source of every value")
+    materials.add_argument("--temperature", type=float, default=300.0, metavar="K")
+    return parser
+
+
+def software_version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("tunnelsmith")
+    except PackageNotFoundError:
+        return "0+unknown"
+
+
+def _dispatch(args: argparse.Namespace) -> int:
+    if args.command == "solve":
+        from optimize.solve import run_solve
+
+        return run_solve(args.stack, out_dir=args.out)
+    if args.command == "optimize":
+        from optimize.campaign import run_campaign
+
+        timeout_s = None if args.timeout is None else parse_duration_s(args.timeout)
+        return run_campaign(
+            args.campaign, out_dir=args.out, trials=args.trials, timeout_s=timeout_s,
+            workers=args.workers, storage=args.storage, quiet=args.quiet,
+        )
+    if args.command == "front":
+        from optimize.front import rebuild_front
+
+        return rebuild_front(args.run_dir, storage=args.storage, quiet=args.quiet)
+    if args.command == "tolerance":
+        from optimize.tolerance import run_tolerance
+
+        return run_tolerance(
+            args.target, design=args.design, samples=args.samples, out_dir=args.out,
+            storage=args.storage, quiet=args.quiet,
+        )
+    if args.command == "check":
+        from optimize.spec import describe, load
+
+        print(describe(load(args.file)))
+        return EXIT_OK
+    if args.command == "materials":
+        from optimize.report import materials_table
+
+        if not args.temperature > 0:
+            raise InputError("command line", "--temperature", "the temperature must be positive",
+                             "give a temperature in kelvin, e.g. --temperature 77")
+        print(materials_table(args.temperature))
+        return EXIT_OK
+    raise AssertionError(args.command)
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``tunnelsmith`` console script."""
+    args = build_parser().parse_args(argv)
+    try:
+        return _dispatch(args)
+    except InputError as error:
+        print(f"error: {error}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("interrupted", file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,32 @@
+"""Plain-text tables for the terminal."""
+
+from __future__ import annotations
+
+from physics import materials
+
+
+def materials_table(temperature_K: float = 300.0) -> str:
+    """The material table at ``temperature_K`` with the source of every value."""
+    records = materials.catalogue(temperature_K)
+    header = (f"{'material':<18}{'E_c (eV)':>10}{'mass (m0)':>11}{'gap (eV)':>10}"
+              f"{'a (nm)':>9}{'ML (nm)':>9}")
+    lines = [
+        f"Gamma-valley parameters at {temperature_K:g} K. E_c is the conduction-band edge on one absolute scale",
+        "(valence-band offset + Gamma gap), so any two rows line up: the band offset is the difference.",
+        "",
+        header,
+        "-" * len(header),
+    ]
+    sources: dict[str, int] = {}
+    for record in records:
+        marks = []
+        for field in ("conduction_band_eV", "mass", "gap_eV", "lattice_nm"):
+            text = record.sources.get(field, "not stated")
+            marks.append(sources.setdefault(text, len(sources) + 1))
+        lines.append(
+            f"{record.name:<18}{record.conduction_band_eV:>10.4f}{record.mass:>11.4f}{record.gap_eV:>10.4f}"
+            f"{record.lattice_nm:>9.5f}{record.monolayer_nm:>9.5f}   [sources {', '.join(map(str, marks))}]"
+        )
+    lines += ["", "Sources (per row: E_c, mass, gap, lattice):"]
+    lines += [f"  [{number}] {text}" for text, number in sources.items()]
+    return "\n".join(lines)

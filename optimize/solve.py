@@ -1,0 +1,183 @@
+"""``tunnelsmith solve``: everything about one stack, stored as ``solution.nc``.
+
+Flow: stack file → :class:`~optimize.stack.DesignBatch` of one design → Device →
+physics (biased profiles, transmission at every bias, quasi-bound levels, I–V,
+figures of merit) → one xarray Dataset → netCDF → plots drawn from the Dataset.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from optimize import spec as spec_module
+from optimize.io import MODEL_CAUTION, provenance_attrs, write_netcdf
+from optimize.stack import nominal_batch, to_device
+from physics import metrics as metrics_module
+from physics.profile import biased_profile, interface_positions_nm
+from physics.resonance import closed_box_states, find_resonances
+from physics.transfer import scattering
+
+#: Emitter and collector are drawn this far beyond the layers in band diagrams (nm).
+CONTACT_MARGIN_nm = 5.0
+
+
+def solution_requests(spec) -> list:
+    """Every catalogue metric the stack file can define, plus those it asks for."""
+    requests = {r.label: r for r in spec.metric_requests}
+    for name, info in metrics_module.CATALOGUE.items():
+        if info.takes_bias:
+            continue  # needs an at_bias_V, which only a spec window or objective gives
+        if info.needs == "iv" and spec.bias.steps < 3:
+            continue
+        request = metrics_module.MetricRequest(name)
+        requests.setdefault(request.label, request)
+    return list(requests.values())
+
+
+def solve_dataset(spec) -> xr.Dataset:
+    """Compute the full solution of a stack file without ranges."""
+    batch = nominal_batch(spec)
+    device = to_device(spec, batch)
+    energy_eV = spec.energy.values
+    bias_V = spec.bias.values
+    requests = solution_requests(spec)
+    evaluation = metrics_module.evaluate(
+        device, requests, energy_eV=energy_eV, bias_V=bias_V, max_levels=spec.model.max_levels
+    )
+    slice_kwargs = {} if spec.model.slice_nm is None else {"slice_nm": spec.model.slice_nm}
+    profile = biased_profile(device, bias_V, **slice_kwargs)
+    transmission = scattering(energy_eV, **profile.arrays).transmission[0]  # (nV, nE)
+    window = (float(energy_eV[0]), float(energy_eV[-1]))
+    levels = find_resonances(**profile.arrays, window_eV=window, max_levels=spec.model.max_levels)
+
+    coords = {
+        "energy": ("energy", energy_eV, {"units": "eV", "long_name": "electron energy above the emitter band edge"}),
+        "bias": ("bias", bias_V, {"units": "V", "long_name": "applied bias (collector lowered)"}),
+        "level": ("level", np.arange(levels.energy_eV.shape[-1]), {"long_name": "quasi-bound level index"}),
+        "layer": ("layer", list(batch.layer_names), {"long_name": "layer name"}),
+    }
+    data = {
+        "transmission": (("bias", "energy"), transmission,
+                         {"units": "1", "long_name": "flux-normalised transmission probability"}),
+        "resonance_energy": (("bias", "level"), levels.energy_eV[0],
+                             {"units": "eV", "long_name": "quasi-bound level energy E_r (pole real part)"}),
+        "resonance_width": (("bias", "level"), levels.width_eV[0],
+                            {"units": "eV", "long_name": "level width Gamma (FWHM, -2 x pole imaginary part)"}),
+    }
+    data.update(_profile_variables(profile, batch, device))
+    if evaluation.current_density_A_cm2 is not None:
+        data["current_density"] = (("bias",), _on_sweep(evaluation, bias_V),
+                                   {"units": "A/cm2", "long_name": "Tsu-Esaki current density"})
+    for label, values in evaluation.values.items():
+        info = metrics_module.CATALOGUE[label.split("@")[0]]
+        reason = str(evaluation.reasons[label][0])
+        attrs = {"units": info.units, "long_name": info.long_name}
+        if reason:
+            attrs["undefined_because"] = reason
+        data[_variable_name(label)] = ((), float(values[0]), attrs)
+    data.update(_state_variables(spec, device, evaluation, bias_V))
+
+    attrs = provenance_attrs(spec.text)
+    attrs.update(title=f"tunnelsmith solution of {spec.path.name}", temperature_K=spec.temperature_K)
+    return xr.Dataset({k: xr.Variable(*v) for k, v in data.items()},
+                      coords={k: xr.Variable(*v) for k, v in coords.items()}, attrs=attrs)
+
+
+def _variable_name(label: str) -> str:
+    """A netCDF-safe variable name for a metric label (``leakage_A_cm2@0.05V``)."""
+    return label.replace("@", "_at_").replace(".", "p").replace("-", "m")
+
+
+def _on_sweep(evaluation, bias_V) -> np.ndarray:
+    """Current density on the spec's sweep (evaluation may carry extra biases)."""
+    sweep = np.asarray(evaluation.bias_V)
+    index = [int(np.argmin(np.abs(sweep - v))) for v in bias_V]
+    return np.asarray(evaluation.current_density_A_cm2)[0, index]
+
+
+def _profile_variables(profile, batch, device) -> dict:
+    """Band edge as a step function of position, and the layer extents."""
+    thickness = np.asarray(profile.thickness_nm)[0, 0]  # (L',)
+    edges = np.concatenate([[0.0], np.cumsum(thickness[1:-1])])
+    start = np.concatenate([[-CONTACT_MARGIN_nm], edges])
+    end = np.concatenate([edges, [edges[-1] + CONTACT_MARGIN_nm]])
+    position = np.stack([start, end], axis=-1).ravel()  # two samples per slice → steps
+    band = np.repeat(np.real(profile.band_edge_eV[0]), 2, axis=-1)  # (nV, 2 L')
+    interfaces = interface_positions_nm(np.asarray(device.thickness_nm)[0])
+    return {
+        "band_edge": (("bias", "position"), band,
+                      {"units": "eV", "long_name": "conduction-band edge (piecewise constant, sliced)"}),
+        "position_nm": (("position",), position, {"units": "nm", "long_name": "position from the emitter interface"}),
+        "layer_start": (("layer",), interfaces[:-1], {"units": "nm", "long_name": "layer start position"}),
+        "layer_end": (("layer",), interfaces[1:], {"units": "nm", "long_name": "layer end position"}),
+        "layer_material": (("layer",), np.array(batch.material_names()[0], dtype=str),
+                           {"long_name": "layer material"}),
+        "layer_thickness_nm": (("layer",), batch.thickness_nm[0], {"units": "nm", "long_name": "layer thickness"}),
+    }
+
+
+def _state_variables(spec, device, evaluation, bias_V) -> dict:
+    """|psi|^2 of the closed-box states at zero bias and at the current peak."""
+    biases = [0.0]
+    peak = evaluation.values.get("peak_voltage_V")
+    if peak is not None and np.isfinite(peak[0]):
+        biases.append(float(bias_V[int(np.argmin(np.abs(bias_V - peak[0])))]))
+    window = (float(spec.energy.values[0]), float(spec.energy.values[-1]))
+    profile = biased_profile(device, biases)
+    energies, densities, grid = [], [], None
+    for index in range(len(biases)):
+        energy, position, probability = closed_box_states(
+            np.real(profile.band_edge_eV[0, index]), profile.mass[0, index], profile.thickness_nm[0, index],
+            window_eV=window,
+        )
+        grid = position if grid is None else grid
+        energies.append(energy)
+        densities.append(np.array([np.interp(grid, position, p) for p in probability]).reshape(len(energy), grid.size))
+    n_states = max((len(e) for e in energies), default=0)
+    state_energy = np.full((len(biases), n_states), np.nan)
+    state_probability = np.full((len(biases), n_states, grid.size), np.nan)
+    for index, (energy, density) in enumerate(zip(energies, densities)):
+        state_energy[index, : len(energy)] = energy
+        state_probability[index, : len(energy)] = density
+    return {
+        "state_bias": (("state_bias",), np.array(biases), {"units": "V", "long_name": "bias of the drawn states"}),
+        "state_position": (("state_position",), grid, {"units": "nm", "long_name": "position of |psi|^2 samples"}),
+        "state_energy": (("state_bias", "state"), state_energy,
+                         {"units": "eV", "long_name": "closed-box state energy"}),
+        "state_probability": (("state_bias", "state", "state_position"), state_probability,
+                              {"units": "1/nm", "long_name": "closed-box |psi|^2, normalised"}),
+    }
+
+
+def metrics_table(dataset: xr.Dataset) -> str:
+    """A short terminal table of the scalar figures of merit."""
+    rows = []
+    for name, variable in dataset.data_vars.items():
+        if variable.ndim == 0:
+            value = float(variable.values)
+            text = f"{value:.4g}" if np.isfinite(value) else f"undefined ({variable.attrs.get('undefined_because', '')})"
+            rows.append(f"  {name:<26} {text:>14}  {variable.attrs.get('units', '')}")
+    return "\n".join(rows)
+
+
+def run_solve(stack_path: Path, *, out_dir: Path | None = None) -> int:
+    """Entry point of ``tunnelsmith solve``; returns the exit status."""
+    spec = spec_module.load(stack_path)
+    for warning in spec.warnings:
+        print(f"warning: {warning}")
+    out_dir = Path(out_dir) if out_dir is not None else Path("runs") / Path(stack_path).stem
+    dataset = solve_dataset(spec)
+    path = write_netcdf(dataset, out_dir / "solution.nc")
+    from optimize.plots import plot_solution
+
+    figures = plot_solution(dataset, out_dir)
+    print(f"tunnelsmith solve: {spec.path}")
+    print(metrics_table(dataset))
+    print(f"\nsolution: {path}")
+    for figure in figures:
+        print(f"plot:     {figure}")
+    print(f"\nnote: {MODEL_CAUTION}")
+    return 0
