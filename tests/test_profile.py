@@ -1,0 +1,70 @@
+"""Biased profiles: the linear drop, the contacts, the slicing."""
+
+import numpy as np
+import pytest
+
+from physics.device import Device
+from physics.profile import DEFAULT_SLICE_nm, biased_profile, interface_positions_nm, slices_per_layer
+
+
+def double_barrier(n_stacks=1, well_nm=4.5):
+    edge = np.tile([0.1, 0.1, 1.2, 0.1, 1.2, 0.1, 0.1], (n_stacks, 1))
+    mass = np.tile([0.041, 0.041, 0.15, 0.041, 0.15, 0.041, 0.041], (n_stacks, 1))
+    thickness = np.tile([0.0, 2.0, 1.5, well_nm, 1.5, 2.0, 0.0], (n_stacks, 1))
+    return Device(edge, mass, thickness, 2e18, 2e18, 300.0)
+
+
+def test_energies_refer_to_the_emitter_and_collector_drops_by_bias():
+    device = double_barrier()
+    profile = biased_profile(device, [0.0, 0.4])
+    edge = profile.band_edge_eV[0]
+    assert edge[0, 0] == 0.0 and edge[1, 0] == 0.0
+    assert edge[0, -1] == pytest.approx(0.0)
+    assert edge[1, -1] == pytest.approx(-0.4)
+
+
+def test_slice_midpoints_follow_the_exact_linear_potential():
+    device = double_barrier()
+    bias = 0.5
+    profile = biased_profile(device, [bias], slice_nm=0.1)
+    thickness = profile.thickness_nm[0, 0]
+    start = np.concatenate([[0.0], np.cumsum(thickness)[:-1]])
+    midpoint = start + thickness / 2
+    total = device.total_thickness_nm[0]
+    zero_bias = np.asarray(device.band_edge_eV)[0, profile.layer_index] - 0.1
+    expected = zero_bias - bias * midpoint / total
+    inner = slice(1, -1)
+    np.testing.assert_allclose(profile.band_edge_eV[0, 0, inner], expected[inner], atol=1e-12)
+    assert np.all(thickness[inner] <= 0.1 + 1e-12)
+    np.testing.assert_allclose(thickness[inner].sum(), total)
+
+
+def test_zero_bias_needs_no_slices():
+    device = double_barrier()
+    profile = biased_profile(device, [0.0])
+    assert profile.band_edge_eV.shape == (1, 1, device.n_layers)
+    np.testing.assert_array_equal(slices_per_layer(device.thickness_nm, [0.0], DEFAULT_SLICE_nm), 1)
+
+
+def test_batch_shares_slice_count_and_keeps_each_stack_exact():
+    thin, thick = double_barrier(well_nm=3.0), double_barrier(well_nm=6.0)
+    both = Device(*(np.concatenate([getattr(thin, f), getattr(thick, f)]) for f in
+                    ("band_edge_eV", "mass", "thickness_nm", "emitter_doping_cm3", "collector_doping_cm3")), 300.0)
+    profile = biased_profile(both, [0.3])
+    alone = biased_profile(thick, [0.3])
+    assert profile.band_edge_eV.shape[-1] == alone.band_edge_eV.shape[-1]
+    np.testing.assert_allclose(profile.thickness_nm[1], alone.thickness_nm[0])
+    np.testing.assert_allclose(profile.band_edge_eV[1], alone.band_edge_eV[0])
+    np.testing.assert_allclose(profile.thickness_nm[0, 0].sum(), thin.total_thickness_nm[0])
+
+
+def test_absorption_makes_the_edge_complex():
+    device = double_barrier()
+    absorbing = Device(device.band_edge_eV, device.mass, device.thickness_nm, 2e18, 2e18, 300.0,
+                       absorption_eV=np.where(np.arange(7) == 3, 0.002, 0.0)[None, :])
+    profile = biased_profile(absorbing, [0.0])
+    np.testing.assert_allclose(profile.band_edge_eV[0, 0].imag, [0, 0, 0, -0.002, 0, 0, 0])
+
+
+def test_interface_positions():
+    np.testing.assert_allclose(interface_positions_nm(np.array([0, 1.0, 2.0, 0])), [0, 1, 3])
