@@ -141,6 +141,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        # The reader went away (e.g. `| head`): not an error of ours.
+        sys.stderr.close()
+        return EXIT_OK
 
 
 if __name__ == "__main__":

@@ -132,14 +132,16 @@ def to_device(spec, batch: DesignBatch) -> Device:
 
 
 def nominal_batch(spec) -> DesignBatch:
-    """The single design of a stack file whose values are all fixed (ties resolved)."""
+    """The single design of a stack file whose values are all fixed.
+
+    Ties are already resolved by :func:`optimize.spec.load` (a tied layer carries
+    copies of the values of the layer it names).
+    """
     from optimize.errors import InputError
 
-    layers = resolve_ties(spec)
     base, fraction, thickness_nm = [], [], []
-    for layer in layers:
-        if not isinstance(layer.material, str) or _is_range(layer.fraction) or _is_range(layer.thickness_ml) \
-                or _is_range(layer.thickness_nm):
+    for layer in spec.layers:
+        if layer.searched:
             raise InputError(spec.path, f'layer "{layer.name}"', "this layer has a search range",
                              "give fixed values to solve one stack, or run the file with `tunnelsmith optimize`")
         b, f = split_material(layer.material, layer.fraction)
@@ -152,22 +154,3 @@ def nominal_batch(spec) -> DesignBatch:
                 np.array([b], object), np.array([f]), [layer.thickness_ml], spec.temperature_K, spec.user_materials)[0]))
     names = tuple(layer.name for layer in spec.layers)
     return DesignBatch(names, np.array([base], dtype=object), np.array([fraction]), np.array([thickness_nm]))
-
-
-def resolve_ties(spec) -> list:
-    """Layers with every ``like`` tie replaced by the values of the layer it names."""
-    from dataclasses import replace
-
-    by_name = {layer.name: layer for layer in spec.layers}
-    resolved = []
-    for layer in spec.layers:
-        source = layer
-        while source.like is not None:
-            source = by_name[source.like]
-        resolved.append(replace(layer, material=source.material, fraction=source.fraction,
-                                thickness_ml=source.thickness_ml, thickness_nm=source.thickness_nm, like=None))
-    return resolved
-
-
-def _is_range(value) -> bool:
-    return value is not None and not isinstance(value, (int, float))

@@ -1,0 +1,1 @@
+"""Campaign files, search, tolerance analysis, results and the ``tunnelsmith`` command."""

@@ -1,0 +1,48 @@
+"""The one error type for bad user input.
+
+Every problem a user can fix by editing a file or a command line is raised as
+:class:`InputError`. The command line prints ``str(err)`` (one paragraph naming the file,
+the key, the problem and the fix) to stderr and exits with status 2, never with a
+traceback.
+"""
+
+from __future__ import annotations
+
+
+def _one_line(text: str) -> str:
+    # Messages are printed as a single paragraph: fold any line breaks that came from
+    # quoted file content or from wrapped library messages.
+    return " ".join(str(text).split())
+
+
+class InputError(Exception):
+    """A problem in user input, with the place it occurs and how to fix it.
+
+    Parameters
+    ----------
+    file : str or os.PathLike
+        The file (or other input source, such as ``"command line"``) holding the problem.
+    key : str or None
+        Dotted path of the offending key, e.g. ``layer "well".thickness_nm`` or
+        ``search.trials``; ``None`` for a problem with the file as a whole.
+    problem : str
+        What is wrong, as a sentence without a final full stop.
+    fix : str
+        A concrete edit that removes the problem.
+
+    Notes
+    -----
+    ``str(err)`` is ``"<file>: <key>: <problem>. Fix: <fix>"`` (the key part is left out
+    when ``key`` is ``None``).
+    """
+
+    def __init__(self, file, key: str | None, problem: str, fix: str):
+        super().__init__(file, key, problem, fix)
+        self.file = str(file)
+        self.key = key
+        self.problem = _one_line(problem).rstrip(".")
+        self.fix = _one_line(fix)
+
+    def __str__(self) -> str:
+        place = self.file if self.key is None else f"{self.file}: {self.key}"
+        return f"{place}: {self.problem}. Fix: {self.fix}"

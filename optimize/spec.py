@@ -1,0 +1,1772 @@
+"""Stack and campaign files: schema, validation and description.
+
+A *stack file* describes one layer structure between two doped contacts. A *campaign
+file* is a stack file in which layer values may be search ranges, plus objectives,
+constraints, search settings and growth tolerances. Both are TOML; the format is the
+contract of section 4 of the design document. :func:`load` reads either into an
+immutable :class:`StackSpec`; :func:`describe` renders one for ``tunnelsmith check``.
+
+Every problem in a file is raised as :class:`~optimize.errors.InputError` naming the
+file, the dotted key (``layer "well".thickness_nm``, ``objective[2].target``; array
+entries count from 1) and a concrete fix. Misspelt keys are matched to the nearest
+valid key with :mod:`difflib`.
+
+Ties
+----
+``like = "other"`` makes a layer a copy of another one: in the loaded spec the tied
+layer carries the material, fraction and thickness of the layer it is tied to (ranges
+included) and its ``like`` names the *root* of the tie chain, so a search draws one
+value for the whole group. A tied layer keeps its own ``absorption_eV`` when it sets
+one and otherwise inherits the root's.
+
+Units follow the key names: eV, nm, monolayers (ml), K, V, cm^-3, A/cm^2.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import math
+import re
+import tomllib
+import warnings
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from optimize.errors import InputError
+from physics import materials as _materials
+
+try:
+    from physics.metrics import MetricRequest
+except ModuleNotFoundError as _exc:  # physics.metrics not present in this tree yet
+    if _exc.name != "physics.metrics":
+        raise
+
+    @dataclass(frozen=True)
+    class MetricRequest:
+        """One metric to evaluate, optionally at a stated bias (V)."""
+
+        name: str
+        at_bias_V: float | None = None
+
+        @property
+        def label(self) -> str:
+            """``name``, or ``name@<bias>V`` for metrics evaluated at a bias."""
+            if self.at_bias_V is None:
+                return self.name
+            return f"{self.name}@{self.at_bias_V:g}V"
+
+
+__all__ = [
+    "BiasSweep",
+    "Choices",
+    "ConstraintSpec",
+    "ContactSpec",
+    "Dimension",
+    "EnergyGrid",
+    "FloatRange",
+    "IntRange",
+    "LayerSpec",
+    "METRICS",
+    "MetricInfo",
+    "MetricRequest",
+    "ModelSpec",
+    "ObjectiveSpec",
+    "RobustSpec",
+    "SAMPLERS",
+    "SearchSpec",
+    "StackSpec",
+    "ToleranceSpec",
+    "WindowSpec",
+    "describe",
+    "design_count",
+    "load",
+    "search_dimensions",
+]
+
+
+# --------------------------------------------------------------------------------------
+# Metric catalogue as the file format sees it
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class MetricInfo:
+    """What the file format needs to know about a catalogue metric.
+
+    ``needs_iv``: computed from the I–V sweep (else from zero-bias transmission alone);
+    ``takes_bias``: evaluated at a stated ``at_bias_V``; ``positive``: strictly positive
+    wherever defined, so ``log = true`` is meaningful.
+    """
+
+    needs_iv: bool
+    takes_bias: bool
+    positive: bool
+
+
+#: The metric catalogue of design section 3, keyed by the names used in campaign files.
+METRICS: dict[str, MetricInfo] = {
+    "resonance_energy_eV": MetricInfo(needs_iv=False, takes_bias=False, positive=False),
+    "resonance_width_eV": MetricInfo(needs_iv=False, takes_bias=False, positive=True),
+    "transmission_contrast": MetricInfo(needs_iv=False, takes_bias=False, positive=True),
+    "peak_current_A_cm2": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
+    "peak_voltage_V": MetricInfo(needs_iv=True, takes_bias=False, positive=False),
+    "valley_current_A_cm2": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
+    "valley_voltage_V": MetricInfo(needs_iv=True, takes_bias=False, positive=False),
+    "pvcr": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
+    "swing_product_W_cm2": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
+    "leakage_A_cm2": MetricInfo(needs_iv=True, takes_bias=True, positive=True),
+    "total_thickness_nm": MetricInfo(needs_iv=False, takes_bias=False, positive=True),
+}
+
+#: Share of Monte Carlo growth samples meeting every [[tolerance.spec]] window.
+YIELD = "yield"
+
+#: Optuna samplers a campaign may name.
+SAMPLERS = ("nsga2", "tpe", "gp", "random", "qmc")
+
+# An I–V metric locates a peak and a valley, which needs at least three biases.
+_MIN_IV_STEPS = 3
+
+
+# --------------------------------------------------------------------------------------
+# Data model
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class IntRange:
+    """Whole numbers ``min, min + 1, ..., max`` (both ends included)."""
+
+    min: int
+    max: int
+
+    @property
+    def size(self) -> int:
+        """Number of distinct values."""
+        return self.max - self.min + 1
+
+
+@dataclass(frozen=True)
+class FloatRange:
+    """Real numbers from ``min`` to ``max``; on a grid of ``step`` when one is given."""
+
+    min: float
+    max: float
+    step: float | None = None
+
+    @property
+    def size(self) -> int | None:
+        """Number of grid values, 1 for ``min == max``, ``None`` when continuous."""
+        if self.min == self.max:
+            return 1
+        if self.step is None:
+            return None
+        return int(round((self.max - self.min) / self.step)) + 1
+
+
+@dataclass(frozen=True)
+class Choices:
+    """A categorical choice between material names."""
+
+    values: tuple[str, ...]
+
+    @property
+    def size(self) -> int:
+        """Number of choices."""
+        return len(self.values)
+
+
+@dataclass(frozen=True)
+class BiasSweep:
+    """Evenly spaced biases from ``from_V`` to ``to_V`` (both included), in V."""
+
+    from_V: float = 0.0
+    to_V: float = 1.0
+    steps: int = 51
+
+    @property
+    def values(self) -> np.ndarray:
+        """The biases, shape ``(steps,)``, V."""
+        return np.linspace(self.from_V, self.to_V, self.steps)
+
+
+@dataclass(frozen=True)
+class EnergyGrid:
+    """Evenly spaced energies for zero-bias transmission, eV above the emitter edge."""
+
+    from_eV: float = 0.0
+    to_eV: float = 1.0
+    points: int = 2001
+
+    @property
+    def values(self) -> np.ndarray:
+        """The energies, shape ``(points,)``, eV."""
+        return np.linspace(self.from_eV, self.to_eV, self.points)
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """Model switches: non-parabolic masses, bias slice thickness (nm), levels kept."""
+
+    nonparabolic: bool = False
+    slice_nm: float | None = None
+    max_levels: int = 4
+
+
+@dataclass(frozen=True)
+class ContactSpec:
+    """A doped contact (emitter or collector), doping in cm^-3."""
+
+    material: str
+    fraction: float | None
+    doping_cm3: float
+
+
+@dataclass(frozen=True)
+class LayerSpec:
+    """One layer between the contacts; any value may be a search range.
+
+    Exactly one of ``thickness_ml`` (whole monolayers) and ``thickness_nm`` is set.
+    ``like`` names the root layer this layer is tied to (its values are copies of the
+    root's). ``absorption_eV`` is a phenomenological optical potential W >= 0 (the band
+    edge becomes U - iW) that broadens resonances.
+    """
+
+    name: str
+    material: str | Choices
+    fraction: float | FloatRange | None
+    thickness_ml: int | IntRange | None
+    thickness_nm: float | FloatRange | None
+    like: str | None = None
+    absorption_eV: float = 0.0
+
+    @property
+    def searched(self) -> bool:
+        """Whether any value of this layer is a search range."""
+        return any(
+            isinstance(value, (IntRange, FloatRange, Choices))
+            for value in (self.material, self.fraction, self.thickness_ml, self.thickness_nm)
+        )
+
+
+@dataclass(frozen=True)
+class ObjectiveSpec:
+    """One objective: a metric to maximise or minimise, or to bring close to a target.
+
+    With ``target`` the objective is ``|value - target|`` (minimised); with ``log`` the
+    metric (and the target) is taken as log10 first.
+    """
+
+    metric: str
+    goal: str | None = None
+    target: float | None = None
+    log: bool = False
+    at_bias_V: float | None = None
+
+    @property
+    def request(self) -> MetricRequest:
+        """The metric evaluation this objective needs."""
+        return MetricRequest(self.metric, self.at_bias_V)
+
+    @property
+    def direction(self) -> str:
+        """Optuna study direction, ``"maximize"`` or ``"minimize"``."""
+        return "minimize" if self.target is not None else self.goal
+
+    @property
+    def label(self) -> str:
+        """Readable, unique name, e.g. ``pvcr`` or ``|resonance_energy_eV − 0.15|``."""
+        value = f"log10 {self.request.label}" if self.log else self.request.label
+        if self.target is None:
+            return value
+        target = f"log10 {self.target:g}" if self.log else f"{self.target:g}"
+        return f"|{value} − {target}|"
+
+
+@dataclass(frozen=True)
+class _BoundedMetric:
+    """A metric that must stay within ``[min, max]`` (either bound may be absent)."""
+
+    metric: str
+    min: float | None = None
+    max: float | None = None
+    at_bias_V: float | None = None
+
+    @property
+    def request(self) -> MetricRequest:
+        """The metric evaluation this bound needs."""
+        return MetricRequest(self.metric, self.at_bias_V)
+
+    @property
+    def label(self) -> str:
+        """Readable form, e.g. ``0.14 ≤ resonance_energy_eV ≤ 0.16``."""
+        text = self.request.label
+        if self.min is not None:
+            text = f"{self.min:g} ≤ {text}"
+        if self.max is not None:
+            text = f"{text} ≤ {self.max:g}"
+        return text
+
+
+@dataclass(frozen=True)
+class ConstraintSpec(_BoundedMetric):
+    """A feasibility constraint of the search."""
+
+
+@dataclass(frozen=True)
+class WindowSpec(_BoundedMetric):
+    """A specification window of the growth-tolerance analysis (defines the yield)."""
+
+
+@dataclass(frozen=True)
+class SearchSpec:
+    """Search settings: Optuna sampler, trial budget, batch size, seed, time limit (h)."""
+
+    sampler: str = "nsga2"
+    trials: int = 1000
+    batch: int = 32
+    seed: int | None = None
+    timeout_h: float | None = None
+
+
+@dataclass(frozen=True)
+class RobustSpec:
+    """Optimise under growth error: each trial is scored on ``samples`` grown variants.
+
+    ``statistic = "quantile"`` scores the pessimistic ``quantile`` of each objective
+    (the low tail for maximised objectives, the high tail for minimised ones);
+    ``"mean"`` scores the mean.
+    """
+
+    samples: int = 16
+    quantile: float = 0.1
+    statistic: str = "quantile"
+
+
+@dataclass(frozen=True)
+class ToleranceSpec:
+    """Growth-error model and specification windows.
+
+    ``thickness_sigma_ml``: per-layer thickness error (monolayers, rounded to whole
+    monolayers); ``growth_rate_sigma``: one relative growth-rate factor for the whole
+    stack; ``fraction_sigma``: per-material composition error.
+    """
+
+    thickness_sigma_ml: float = 0.5
+    growth_rate_sigma: float = 0.01
+    fraction_sigma: float = 0.005
+    samples: int = 500
+    seed: int = 0
+    robust: RobustSpec | None = None
+    windows: tuple[WindowSpec, ...] = ()
+
+
+@dataclass(frozen=True)
+class StackSpec:
+    """A validated stack or campaign file."""
+
+    path: Path
+    text: str
+    name: str
+    description: str
+    temperature_K: float
+    emitter: ContactSpec
+    collector: ContactSpec
+    layers: tuple[LayerSpec, ...]
+    user_materials: dict[str, dict[str, float]]
+    bias: BiasSweep
+    energy: EnergyGrid
+    model: ModelSpec
+    objectives: tuple[ObjectiveSpec, ...]
+    constraints: tuple[ConstraintSpec, ...]
+    search: SearchSpec
+    tolerance: ToleranceSpec | None
+    is_campaign: bool
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def sha256(self) -> str:
+        """SHA-256 of the file text (UTF-8), hex."""
+        return hashlib.sha256(self.text.encode("utf-8")).hexdigest()
+
+    @property
+    def metric_requests(self) -> tuple[MetricRequest, ...]:
+        """Metric evaluations needed by objectives, constraints and windows (no yield)."""
+        bounded = self.constraints + (self.tolerance.windows if self.tolerance else ())
+        requests = [item.request for item in self.objectives + bounded]
+        return tuple(dict.fromkeys(r for r in requests if r.name != YIELD))
+
+    @property
+    def needs_iv(self) -> bool:
+        """Whether any requested metric needs the I–V sweep."""
+        return any(METRICS[r.name].needs_iv for r in self.metric_requests)
+
+
+# --------------------------------------------------------------------------------------
+# Reading TOML tables with located, fixable errors
+# --------------------------------------------------------------------------------------
+
+_MISSING = object()
+
+
+def _fmt(value: float) -> str:
+    return f"{value:g}"
+
+
+def _shown(value: Any) -> str:
+    """A value as the user wrote it, with its TOML kind."""
+    if isinstance(value, bool):
+        return f"{str(value).lower()} (a true/false value)"
+    if isinstance(value, str):
+        return f'"{value}" (a string)'
+    if isinstance(value, int):
+        return f"{value} (an integer)"
+    if isinstance(value, float):
+        return f"{value:g} (a number)"
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, list):
+        return "an array"
+    return f"{value} (a {type(value).__name__})"
+
+
+def _nearest(word: str, candidates: Iterable[str]) -> list[str]:
+    """The candidates closest to ``word`` (case-insensitive), all equally close; maybe empty."""
+    by_lower = {c.lower(): c for c in candidates}
+    matcher = difflib.SequenceMatcher(b=word.lower())
+    scored = []
+    for lower, original in by_lower.items():
+        matcher.set_seq1(lower)
+        scored.append((matcher.ratio(), original))
+    best = max((score for score, _ in scored), default=0.0)
+    if best < 0.6:
+        return []
+    return [original for score, original in scored if score == best]
+
+
+def _quoted(names: Iterable[str]) -> str:
+    return " or ".join(f'"{name}"' for name in names)
+
+
+def _rename_fix(word: str, candidates: Iterable[str], what: str) -> str:
+    candidates = list(candidates)
+    near = _nearest(word, candidates)
+    allowed = f"the {what} are {', '.join(candidates)}"
+    return f"did you mean {_quoted(near)}? ({allowed})" if near else f"use one of them: {allowed}"
+
+
+class _Table:
+    """One TOML table under a dotted key path; reads typed values or raises InputError."""
+
+    def __init__(self, file: str, path: str, data: Mapping[str, Any], allowed: Iterable[str]):
+        self.file = file
+        self.path = path
+        self.data = data
+        allowed = tuple(allowed)
+        for key in data:
+            if key not in allowed:
+                near = _nearest(key, allowed)
+                fix = (
+                    f"rename it to {_quoted(near)}"
+                    if near
+                    else f"remove it; the keys allowed here are {', '.join(allowed)}"
+                )
+                raise self.error(key, f'unknown key "{key}"', fix)
+
+    def key(self, name: str | None = None) -> str | None:
+        if name is None:
+            return self.path or None
+        return f"{self.path}.{name}" if self.path else name
+
+    def error(self, name: str | None, problem: str, fix: str) -> InputError:
+        return InputError(self.file, self.key(name), problem, fix)
+
+    def has(self, name: str) -> bool:
+        return name in self.data
+
+    def _value(self, name: str, default: Any, example: str) -> tuple[bool, Any]:
+        """``(True, raw value)`` if present, else ``(False, default)``; raises if required."""
+        if name in self.data:
+            return True, self.data[name]
+        if default is _MISSING:
+            if not self.path:
+                where = "at the top of the file"
+            elif "[" in self.path or '"' in self.path:
+                where = f"in {self.path}"  # an entry of an array of tables
+            else:
+                where = f"in [{self.path}]"
+            raise self.error(name, f"required key {name} is missing", f"add {name} = {example} {where}")
+        return False, default
+
+    def number(
+        self,
+        name: str,
+        default: Any = _MISSING,
+        *,
+        example: str,
+        above: float | None = None,
+        at_least: float | None = None,
+        at_most: float | None = None,
+    ) -> float:
+        """A finite real number, optionally bounded; integers are accepted."""
+        present, value = self._value(name, default, example)
+        if not present:
+            return value
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            fix = f"write a plain number, e.g. {name} = {example}"
+            if isinstance(value, str) and _looks_numeric(value):
+                fix = f"remove the quotes: {name} = {value.strip()}"
+            raise self.error(name, f"expected a number, got {_shown(value)}", fix)
+        if not math.isfinite(value):
+            raise self.error(
+                name,
+                f"{name} = {value} is not a finite number",
+                f"give a finite value, e.g. {name} = {example}",
+            )
+        _check_bounds(self, name, float(value), example, above, at_least, at_most)
+        return float(value)
+
+    def integer(
+        self, name: str, default: Any = _MISSING, *, example: str, at_least: int | None = None
+    ) -> int:
+        """A whole number; a float with no fractional part (``2e4``) is accepted."""
+        present, value = self._value(name, default, example)
+        if not present:
+            return value
+        if isinstance(value, float) and math.isfinite(value) and value.is_integer():
+            value = int(value)
+        if isinstance(value, bool) or not isinstance(value, int):
+            fix = f"write a whole number, e.g. {name} = {example}"
+            if isinstance(value, str) and _looks_numeric(value):
+                fix = f"remove the quotes and write a whole number, e.g. {name} = {example}"
+            raise self.error(name, f"expected a whole number, got {_shown(value)}", fix)
+        _check_bounds(self, name, value, example, None, at_least, None)
+        return value
+
+    def string(
+        self, name: str, default: Any = _MISSING, *, example: str, choices: Iterable[str] | None = None
+    ) -> str:
+        """A non-empty string, optionally one of ``choices``."""
+        present, value = self._value(name, default, example)
+        if not present:
+            return value
+        if not isinstance(value, str):
+            raise self.error(
+                name,
+                f"expected a string, got {_shown(value)}",
+                f"write it in double quotes, e.g. {name} = {example}",
+            )
+        if not value.strip():
+            raise self.error(name, f"{name} is empty", f"give a value, e.g. {name} = {example}")
+        if choices is not None and value not in choices:
+            raise self.error(
+                name, f'"{value}" is not a valid {name}', _rename_fix(value, choices, f"values of {name}")
+            )
+        return value
+
+    def boolean(self, name: str, default: Any = _MISSING, *, example: str = "true") -> bool:
+        present, value = self._value(name, default, example)
+        if present and not isinstance(value, bool):
+            raise self.error(
+                name,
+                f"expected true or false, got {_shown(value)}",
+                f"write {name} = true or {name} = false (no quotes)",
+            )
+        return value
+
+    def table(self, name: str, allowed: Iterable[str], *, example: str) -> _Table | None:
+        """A sub-table, or ``None`` when absent."""
+        if name not in self.data:
+            return None
+        value = self.data[name]
+        if not isinstance(value, dict):
+            raise self.error(
+                name, f"expected a table, got {_shown(value)}", f"write it as a table, e.g. {example}"
+            )
+        return _Table(self.file, self.key(name), value, allowed)
+
+    def tables(self, name: str, allowed: Iterable[str], *, example: str, label=None) -> list[_Table]:
+        """An array of tables (``[[name]]``); ``label(index, data)`` names each entry."""
+        if name not in self.data:
+            return []
+        value = self.data[name]
+        header = f"[[{self.key(name)}]]"
+        if not isinstance(value, list) or not all(isinstance(item, dict) for item in value):
+            raise self.error(
+                name,
+                f"expected an array of tables, got {_shown(value)}",
+                f"write each entry under its own {header} header (double brackets), e.g. {example}",
+            )
+        entries = []
+        for index, item in enumerate(value, start=1):
+            path = label(index, item) if label else f"{self.key(name)}[{index}]"
+            entries.append(_Table(self.file, path, item, allowed))
+        return entries
+
+
+def _looks_numeric(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _check_bounds(table: _Table, name: str, value: float, example: str, above, at_least, at_most) -> None:
+    if above is not None and not value > above:
+        bound = "positive" if above == 0 else f"above {_fmt(above)}"
+        raise table.error(
+            name,
+            f"{name} = {_fmt(value)} must be {bound}",
+            f"give a value above {_fmt(above)}, e.g. {name} = {example}",
+        )
+    if at_least is not None and value < at_least:
+        raise table.error(
+            name,
+            f"{name} = {_fmt(value)} is below the smallest allowed value {_fmt(at_least)}",
+            f"give a value of at least {_fmt(at_least)}, e.g. {name} = {example}",
+        )
+    if at_most is not None and value > at_most:
+        raise table.error(
+            name,
+            f"{name} = {_fmt(value)} is above the largest allowed value {_fmt(at_most)}",
+            f"give a value of at most {_fmt(at_most)}, e.g. {name} = {example}",
+        )
+
+
+# --------------------------------------------------------------------------------------
+# Reading the file
+# --------------------------------------------------------------------------------------
+
+_TOP_KEYS = (
+    "campaign", "temperature_K", "emitter", "collector", "layer", "materials",
+    "bias", "energy", "model", "objective", "constraint", "search", "tolerance",
+)  # fmt: skip
+_CAMPAIGN_KEYS = ("name", "description")
+_CONTACT_KEYS = ("material", "fraction", "doping_cm3")
+_LAYER_KEYS = ("name", "material", "fraction", "thickness_ml", "thickness_nm", "like", "absorption_eV")
+_TIED_KEYS = ("material", "fraction", "thickness_ml", "thickness_nm")
+_USER_MATERIAL_KEYS = ("conduction_band_eV", "mass", "lattice_nm", "gap_eV")
+_BIAS_KEYS = ("from_V", "to_V", "steps")
+_ENERGY_KEYS = ("from_eV", "to_eV", "points")
+_MODEL_KEYS = ("nonparabolic", "slice_nm", "max_levels")
+_OBJECTIVE_KEYS = ("metric", "goal", "target", "log", "at_bias_V")
+_BOUNDED_KEYS = ("metric", "min", "max", "at_bias_V")
+_SEARCH_KEYS = ("sampler", "trials", "batch", "seed", "timeout_h")
+_TOLERANCE_KEYS = (
+    "thickness_sigma_ml",
+    "growth_rate_sigma",
+    "fraction_sigma",
+    "samples",
+    "seed",
+    "robust",
+    "spec",
+)
+_ROBUST_KEYS = ("samples", "quantile", "statistic")
+_GOALS = ("maximize", "minimize")
+_STATISTICS = ("quantile", "mean")
+_CAMPAIGN_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
+_TOML_POSITION = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
+
+
+def load(path) -> StackSpec:
+    """Read and validate a stack or campaign file.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The TOML file.
+
+    Returns
+    -------
+    StackSpec
+        The validated file, ties resolved, defaults filled in.
+
+    Raises
+    ------
+    InputError
+        For any problem a user can fix in the file (or its path).
+    """
+    path = Path(path)
+    text = _read_text(path)
+    data = _parse_toml(str(path), text)
+    return _Reader(path, text, data).spec()
+
+
+def _read_text(path: Path) -> str:
+    file = str(path)
+    if path.is_dir():
+        found = sorted(p.name for p in path.glob("*.toml"))
+        hint = f"; it holds {', '.join(found)}" if found else ""
+        raise InputError(
+            file,
+            None,
+            f"this is a directory, not a file{hint}",
+            "give the path of a stack or campaign .toml file",
+        )
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError(
+            file, None, "no such file", "check the path and the spelling of the file name"
+        ) from None
+    except OSError as exc:
+        raise InputError(
+            file, None, f"cannot read the file ({exc.strerror})", "check that the file exists and is readable"
+        ) from None
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(
+            file,
+            None,
+            f"not UTF-8 text (undecodable byte at offset {exc.start})",
+            "save the file as UTF-8 text",
+        ) from None
+    if not text.strip():
+        raise InputError(
+            file,
+            None,
+            "the file is empty",
+            "describe a stack: an [emitter] and a [collector] table and at least one [[layer]]",
+        )
+    return text
+
+
+def _parse_toml(file: str, text: str) -> dict:
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        message = str(exc)
+        position = _TOML_POSITION.search(message)
+        if position is None:
+            raise InputError(file, None, f"not valid TOML: {message}", "correct the TOML syntax") from None
+        line, column = int(position.group(1)), int(position.group(2))
+        reason = message[: position.start()]
+        lines = text.splitlines()
+        quoted = lines[line - 1].strip() if 0 < line <= len(lines) else ""
+        near = f" in `{quoted}`" if quoted else ""
+        raise InputError(
+            file,
+            None,
+            f"not valid TOML at line {line}, column {column}{near}: {reason}",
+            f"correct line {line}: settings are written key = value, strings in double quotes, "
+            "tables as [name], repeated tables as [[name]], and no key is given twice",
+        ) from None
+    if not data:
+        raise InputError(
+            file,
+            None,
+            "the file holds no settings, only comments",
+            "describe a stack: an [emitter] and a [collector] table and at least one [[layer]]",
+        )
+    return data
+
+
+class _Reader:
+    """Builds a StackSpec from parsed TOML; collects material warnings on the way."""
+
+    def __init__(self, path: Path, text: str, data: dict):
+        self.path = path
+        self.text = text
+        self.file = str(path)
+        self.root = _Table(self.file, "", data, _TOP_KEYS)
+        # message -> keys it applies to, so that one warning about a material used in
+        # several layers is reported once.
+        self.warnings: dict[str, list[str]] = {}
+
+    def warn(self, key: str, message: str) -> None:
+        keys = self.warnings.setdefault(message, [])
+        if key not in keys:
+            keys.append(key)
+
+    # -- top level ---------------------------------------------------------------------
+
+    def spec(self) -> StackSpec:
+        root = self.root
+        self.temperature_K = root.number("temperature_K", 300.0, example="300", above=0.0)
+        campaign = root.table("campaign", _CAMPAIGN_KEYS, example='[campaign] with name = "my-rtd"')
+        name, description = self.path.stem, ""
+        if campaign is not None:
+            name = campaign.string("name", self.path.stem, example='"rtd-300ghz"')
+            if not _CAMPAIGN_NAME.fullmatch(name):
+                raise campaign.error(
+                    "name",
+                    f'"{name}" cannot name a run directory',
+                    'use letters, digits, ".", "_" or "-", starting with a letter or digit, e.g. '
+                    'name = "rtd-300ghz"',
+                )
+            description = campaign.string("description", "", example='"what this campaign is for"')
+
+        self.user = self.user_materials()
+        emitter = self.contact("emitter")
+        collector = self.contact("collector")
+        layers = self.layers()
+        is_campaign = campaign is not None or any(layer.searched for layer in layers)
+
+        bias = self.bias()
+        energy = self.energy()
+        model = self.model()
+        tolerance = self.tolerance(bias, is_campaign)
+        has_windows = tolerance is not None and bool(tolerance.windows)
+        objectives = self.objectives(bias, has_windows)
+        constraints = self.constraints(bias, has_windows)
+        search_table = root.table("search", _SEARCH_KEYS, example='[search] with sampler = "nsga2"')
+        search = self.search(search_table)
+
+        spec = StackSpec(
+            path=self.path,
+            text=self.text,
+            name=name,
+            description=description,
+            temperature_K=self.temperature_K,
+            emitter=emitter,
+            collector=collector,
+            layers=layers,
+            user_materials=self.user,
+            bias=bias,
+            energy=energy,
+            model=model,
+            objectives=objectives,
+            constraints=constraints,
+            search=search,
+            tolerance=tolerance,
+            is_campaign=is_campaign,
+            warnings=(),
+        )
+        self.check_campaign(spec, search_table)
+        self.check_model(spec)
+        merged = tuple(f"{', '.join(keys)}: {message}" for message, keys in self.warnings.items())
+        return replace(spec, warnings=merged)
+
+    def check_campaign(self, spec: StackSpec, search_table: _Table | None) -> None:
+        root = self.root
+        if not spec.is_campaign:
+            for key in ("objective", "constraint"):
+                if root.has(key):
+                    raise root.error(
+                        key,
+                        f"[[{key}]] belongs to a campaign, but this file searches nothing (no "
+                        "[campaign] table, no range)",
+                        "give layer values search ranges to make it a campaign, or delete the "
+                        f"[[{key}]] tables (tunnelsmith solve reports every metric)",
+                    )
+            if search_table is not None:
+                raise root.error(
+                    "search",
+                    "[search] belongs to a campaign, but this file searches nothing (no [campaign] "
+                    "table, no range)",
+                    "give layer values search ranges to make it a campaign, or delete [search]",
+                )
+            return
+        if not any(layer.searched for layer in spec.layers):
+            raise root.error(
+                "layer",
+                "nothing to search: the campaign has no range in any layer",
+                "give at least one layer a range, e.g. thickness_ml = { min = 4, max = 12 }, or "
+                "delete [campaign] to solve the stack as it is",
+            )
+        if not spec.objectives:
+            raise root.error(
+                "objective",
+                "the campaign has no objective",
+                'add an objective, e.g. [[objective]] metric = "pvcr" goal = "maximize"',
+            )
+        if design_count(spec) == 1:
+            raise root.error(
+                "layer",
+                "the search space holds a single design (every range has one value)",
+                "widen at least one range, e.g. thickness_ml = { min = 4, max = 12 }",
+            )
+
+    def check_model(self, spec: StackSpec) -> None:
+        if spec.model.nonparabolic:
+            for name, values in spec.user_materials.items():
+                if "gap_eV" not in values:
+                    self.warn(
+                        f"materials.{name}",
+                        f"no gap_eV given, so {name} stays parabolic although [model] nonparabolic = true",
+                    )
+        # The resonance search looks inside the energy grid only, so a goal outside it
+        # can never be met; warn instead of failing, as the grid may be set on purpose.
+        lo, hi = spec.energy.from_eV, spec.energy.to_eV
+        bounded = spec.constraints + (spec.tolerance.windows if spec.tolerance else ())
+        values = [
+            ("target", o.target) for o in spec.objectives if o.metric == "resonance_energy_eV" and not o.log
+        ]
+        values += [
+            (k, getattr(b, k)) for b in bounded if b.metric == "resonance_energy_eV" for k in ("min", "max")
+        ]
+        for label, value in values:
+            if value is not None and not lo <= value <= hi:
+                self.warn(
+                    "energy",
+                    f"resonance_energy_eV {label} {_fmt(value)} eV lies outside the energy grid "
+                    f"{_fmt(lo)} to {_fmt(hi)} eV, where resonances are sought",
+                )
+
+    # -- materials ---------------------------------------------------------------------
+
+    def user_materials(self) -> dict[str, dict[str, float]]:
+        raw = self.root.data.get("materials", {})
+        if not isinstance(raw, dict) or not all(isinstance(v, dict) for v in raw.values()):
+            raise self.root.error(
+                "materials",
+                f"expected one table per material, got {_shown(raw)}",
+                "define each material as [materials.NAME] with conduction_band_eV, mass and lattice_nm",
+            )
+        user: dict[str, dict[str, float]] = {}
+        for name, values in raw.items():
+            table = _Table(self.file, f"materials.{name}", values, _USER_MATERIAL_KEYS)
+            self._check_user_name(table, name)
+            user[name] = {
+                "conduction_band_eV": table.number("conduction_band_eV", example="-3.2"),
+                "mass": table.number("mass", example="0.09", above=0.0),
+                "lattice_nm": table.number("lattice_nm", example="0.5869", above=0.0),
+            }
+            if table.has("gap_eV"):
+                user[name]["gap_eV"] = table.number("gap_eV", example="1.5", above=0.0)
+        return user
+
+    def _check_user_name(self, table: _Table, name: str) -> None:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            try:
+                _materials.material(name, self.temperature_K)
+            except _materials.UnknownMaterialError:
+                return
+            except ValueError:
+                pass  # an alloy key or a composition formula: still a table name
+        raise InputError(
+            self.file,
+            table.path,
+            f'"{name}" is already a material of the built-in table or an alloy formula',
+            f"rename it, e.g. [materials.{name}_custom], and use that name in the layers",
+        )
+
+    def check_material(
+        self, table: _Table, name: str, fraction: float | FloatRange | None, *, material_key: str = "material"
+    ) -> None:
+        """Validate one material name with its fixed or searched fraction."""
+        is_alloy = name in _materials.ALLOYS
+        if is_alloy and fraction is None:
+            first = _materials.ALLOYS[name][0]
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                example = _materials.material(name, self.temperature_K, fraction=0.3).name
+            raise table.error(
+                material_key,
+                f'"{name}" is an alloy key and needs a composition',
+                f"add fraction = 0.3 (the share of {first} in the alloy), or write a full "
+                f'composition such as "{example}"',
+            )
+        fractions = [None]
+        if is_alloy:
+            fractions = [fraction.min, fraction.max] if isinstance(fraction, FloatRange) else [fraction]
+        for x in fractions:
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                try:
+                    _materials.material(name, self.temperature_K, fraction=x, user=self.user)
+                except _materials.UnknownMaterialError as exc:
+                    raise table.error(
+                        material_key, f'unknown material "{name}"', self._unknown_material_fix(name, exc)
+                    ) from None
+                except ValueError as exc:
+                    key = "fraction" if x is not None else material_key
+                    raise table.error(
+                        key,
+                        f'"{name}"'
+                        + (f" with fraction {_fmt(x)}" if x is not None else "")
+                        + f" is not a valid composition: {exc}",
+                        "give compositions between 0 and 1 whose cation shares add up to 1, e.g. "
+                        '"Al0.3Ga0.7As", or an alloy key with fraction',
+                    ) from None
+            for record in caught:
+                if issubclass(record.category, _materials.IndirectValleyWarning):
+                    self.warn(table.key(material_key), str(record.message))
+                else:
+                    warnings.warn_explicit(record.message, record.category, record.filename, record.lineno)
+
+    def _unknown_material_fix(self, name: str, exc) -> str:
+        suggestions = list(dict.fromkeys(_nearest(name, self.user) + list(exc.suggestions)))
+        hint = f"did you mean {_quoted(suggestions)}? " if suggestions else ""
+        return (
+            f"{hint}Use a name listed by `tunnelsmith materials`, an alloy key such as "
+            f'"AlGaAs" with fraction, or define it under [materials.{name}]'
+        )
+
+    # -- contacts and layers -----------------------------------------------------------
+
+    def contact(self, which: str) -> ContactSpec:
+        example = f'[{which}] with material = "GaAs" and doping_cm3 = 2e18'
+        table = self.root.table(which, _CONTACT_KEYS, example=example)
+        if table is None:
+            raise self.root.error(which, f"the [{which}] contact is missing", f"add {example}")
+        material = table.data.get("material")
+        if isinstance(material, dict):
+            raise table.error(
+                "material",
+                "a contact cannot be searched: its material must be one name",
+                'write material = "GaAs" (search ranges belong to [[layer]] tables)',
+            )
+        material = table.string("material", example='"GaAs"')
+        fraction = self.fraction(table, allow_range=False)
+        if fraction is not None and material not in _materials.ALLOYS:
+            raise _fraction_not_used(table, (material,))
+        self.check_material(table, material, fraction)
+        doping = table.number("doping_cm3", example="2e18", at_least=0.0)
+        return ContactSpec(material=material, fraction=fraction, doping_cm3=doping)
+
+    def layers(self) -> tuple[LayerSpec, ...]:
+        def label(index: int, data: dict) -> str:
+            name = data.get("name")
+            if isinstance(name, str) and name.strip() and '"' not in name:
+                return f'layer "{name}"'
+            return f"layer[{index}]"
+
+        tables = self.root.tables(
+            "layer",
+            _LAYER_KEYS,
+            example='[[layer]] name = "barrier" material = "AlAs" thickness_ml = 6',
+            label=label,
+        )
+        if not tables:
+            raise self.root.error(
+                "layer",
+                "the stack has no layer between the contacts",
+                "add at least one [[layer]] with name, material and a thickness, e.g. [[layer]] "
+                'name = "barrier" material = "AlAs" thickness_ml = 6',
+            )
+        raw: list[tuple[_Table, LayerSpec]] = []
+        seen: dict[str, int] = {}
+        for index, table in enumerate(tables, start=1):
+            name = table.string("name", example='"barrier_in"')
+            if '"' in name:
+                raise table.error(
+                    "name",
+                    "a layer name cannot contain double quotes",
+                    'use letters, digits and "_", e.g. name = "barrier_in"',
+                )
+            if name in seen:
+                raise InputError(
+                    self.file,
+                    f"layer[{index}].name",
+                    f'layer name "{name}" is already used by layer[{seen[name]}]',
+                    "give every layer its own name",
+                )
+            seen[name] = index
+            raw.append((table, self.layer(table, name)))
+        return self.resolve_ties(raw)
+
+    def layer(self, table: _Table, name: str) -> LayerSpec:
+        absorption = (
+            table.number("absorption_eV", None, example="0.005", at_least=0.0)
+            if table.has("absorption_eV")
+            else None
+        )
+        if table.has("like"):
+            like = table.string("like", example='"barrier_in"')
+            for key in _TIED_KEYS:
+                if table.has(key):
+                    raise table.error(
+                        key,
+                        f'a layer with like = "{like}" takes {key} from that layer',
+                        f"delete {key} here, or delete like to give this layer its own values",
+                    )
+            return LayerSpec(name, "", None, None, None, like=like, absorption_eV=absorption)
+
+        material = self.layer_material(table)
+        fraction = self.fraction(table, allow_range=True)
+        names = material.values if isinstance(material, Choices) else (material,)
+        alloys = [n for n in names if n in _materials.ALLOYS]
+        if fraction is not None and not alloys:
+            raise _fraction_not_used(table, names)
+        for n in names:
+            self.check_material(table, n, fraction if n in alloys else None)
+        thickness_ml, thickness_nm = self.thickness(table)
+        return LayerSpec(
+            name, material, fraction, thickness_ml, thickness_nm, like=None, absorption_eV=absorption
+        )
+
+    def layer_material(self, table: _Table) -> str | Choices:
+        value = table.data.get("material", _MISSING)
+        if not isinstance(value, dict):
+            return table.string("material", example='"AlAs"')
+        choices_table = _Table(self.file, table.key("material"), value, ("choices",))
+        _, values = choices_table._value("choices", _MISSING, '["GaAs", "InAs"]')
+        if not isinstance(values, list) or not all(isinstance(v, str) and v.strip() for v in values):
+            raise choices_table.error(
+                "choices",
+                f"expected an array of material names, got {_shown(values)}",
+                'write material = { choices = ["In0.53Ga0.47As", "InAs"] }',
+            )
+        if not values:
+            raise choices_table.error(
+                "choices",
+                "the list of choices is empty",
+                'list at least one material, e.g. material = { choices = ["In0.53Ga0.47As", "InAs"] }',
+            )
+        duplicates = sorted({v for v in values if values.count(v) > 1})
+        if duplicates:
+            raise choices_table.error(
+                "choices", f'"{duplicates[0]}" is listed twice', "list each material once"
+            )
+        return Choices(tuple(values))
+
+    def fraction(self, table: _Table, *, allow_range: bool) -> float | FloatRange | None:
+        if not table.has("fraction"):
+            return None
+        if allow_range and isinstance(table.data["fraction"], dict):
+            return self.float_range(
+                table, "fraction", examples=("0.1", "0.4", "0.01"), at_least=0.0, at_most=1.0
+            )
+        return table.number("fraction", example="0.3", at_least=0.0, at_most=1.0)
+
+    def thickness(self, table: _Table) -> tuple[int | IntRange | None, float | FloatRange | None]:
+        has_ml, has_nm = table.has("thickness_ml"), table.has("thickness_nm")
+        if has_ml and has_nm:
+            raise table.error(
+                "thickness_nm",
+                "both thickness_ml and thickness_nm are given",
+                "keep one of them: whole monolayers (thickness_ml) or nanometres (thickness_nm)",
+            )
+        if not (has_ml or has_nm):
+            raise table.error(
+                "thickness_ml",
+                "the layer has no thickness",
+                "add thickness_ml = 6 (whole monolayers) or thickness_nm = 1.7, or like = "
+                '"other_layer" to copy another layer',
+            )
+        if has_nm:
+            if isinstance(table.data["thickness_nm"], dict):
+                return None, self.float_range(
+                    table, "thickness_nm", examples=("2.0", "6.0", "0.1"), above=0.0
+                )
+            return None, table.number("thickness_nm", example="1.7", above=0.0)
+        value = table.data["thickness_ml"]
+        if isinstance(value, dict):
+            rng = _Table(self.file, table.key("thickness_ml"), value, ("min", "max"))
+            lo = rng.integer("min", example="4", at_least=1)
+            hi = rng.integer("max", example="12", at_least=1)
+            _check_order(rng, lo, hi)
+            return IntRange(lo, hi), None
+        if isinstance(value, float) and math.isfinite(value) and not value.is_integer():
+            raise table.error(
+                "thickness_ml",
+                f"thickness_ml = {value:g} is not a whole number of monolayers",
+                f"write thickness_ml = {round(value)} or give the thickness in nanometres with thickness_nm",
+            )
+        return table.integer("thickness_ml", example="6", at_least=1), None
+
+    def float_range(
+        self,
+        table: _Table,
+        name: str,
+        *,
+        examples: tuple[str, str, str],
+        above=None,
+        at_least=None,
+        at_most=None,
+    ) -> FloatRange:
+        """A ``{ min, max, step? }`` range; ``examples`` of min, max and step for messages."""
+        rng = _Table(self.file, table.key(name), table.data[name], ("min", "max", "step"))
+        bounds = dict(above=above, at_least=at_least, at_most=at_most)
+        lo = rng.number("min", example=examples[0], **bounds)
+        hi = rng.number("max", example=examples[1], **bounds)
+        _check_order(rng, lo, hi)
+        step = None
+        if rng.has("step"):
+            step = rng.number("step", example=examples[2], above=0.0)
+            span = hi - lo
+            if step > span:
+                raise rng.error(
+                    "step",
+                    f"step {_fmt(step)} is larger than the span {_fmt(span)} from min to max",
+                    f"use a step of at most {_fmt(span)}, or widen the range",
+                )
+            intervals = span / step
+            if abs(intervals - round(intervals)) > 1e-6 * max(1.0, intervals):
+                below = lo + math.floor(intervals) * step
+                raise rng.error(
+                    "step",
+                    f"the span {_fmt(span)} from min to max is not a whole number of steps {_fmt(step)}",
+                    f"set max = {below:.10g} or max = {below + step:.10g}, or choose a step that "
+                    "divides the span",
+                )
+        return FloatRange(lo, hi, step)
+
+    def resolve_ties(self, raw: list[tuple[_Table, LayerSpec]]) -> tuple[LayerSpec, ...]:
+        by_name = {layer.name: layer for _, layer in raw}
+        for table, layer in raw:
+            if layer.like is None:
+                continue
+            if layer.like == layer.name:
+                raise table.error(
+                    "like",
+                    f'the layer is tied to itself (like = "{layer.like}")',
+                    "name another layer in like, or delete like and give the layer its own values",
+                )
+            if layer.like not in by_name:
+                raise table.error(
+                    "like",
+                    f'no layer is named "{layer.like}"',
+                    _rename_fix(layer.like, [n for n in by_name if n != layer.name], "layer names"),
+                )
+        resolved = []
+        for table, layer in raw:
+            if layer.like is None:
+                resolved.append(replace(layer, absorption_eV=layer.absorption_eV or 0.0))
+                continue
+            chain = [layer.name]
+            root = layer
+            while root.like is not None:
+                if root.like in chain:
+                    loop = " → ".join(chain + [root.like])
+                    raise table.error(
+                        "like",
+                        f"the ties form a loop: {loop}",
+                        "let one layer of the loop carry its own material and thickness instead of like",
+                    )
+                chain.append(root.like)
+                root = by_name[root.like]
+            absorption = (
+                layer.absorption_eV if layer.absorption_eV is not None else (root.absorption_eV or 0.0)
+            )
+            resolved.append(
+                replace(
+                    layer,
+                    material=root.material,
+                    fraction=root.fraction,
+                    thickness_ml=root.thickness_ml,
+                    thickness_nm=root.thickness_nm,
+                    like=root.name,
+                    absorption_eV=absorption,
+                )
+            )
+        return tuple(resolved)
+
+    # -- grids and model ---------------------------------------------------------------
+
+    def bias(self) -> BiasSweep:
+        table = self.root.table(
+            "bias", _BIAS_KEYS, example="[bias] with from_V = 0.0, to_V = 1.0, steps = 51"
+        )
+        if table is None:
+            return BiasSweep()
+        default = BiasSweep()
+        from_V = table.number("from_V", default.from_V, example="0.0")
+        to_V = table.number("to_V", default.to_V, example="1.0")
+        steps = table.integer("steps", default.steps, example="51", at_least=1)
+        if steps > 1 and from_V == to_V:
+            raise table.error(
+                "to_V",
+                f"a sweep of {steps} steps needs to_V different from from_V (both {_fmt(from_V)} V)",
+                "set to_V to the end of the sweep, or steps = 1 for a single bias",
+            )
+        return BiasSweep(from_V, to_V, steps)
+
+    def energy(self) -> EnergyGrid:
+        table = self.root.table(
+            "energy", _ENERGY_KEYS, example="[energy] with from_eV = 0.0, to_eV = 1.0, points = 2001"
+        )
+        if table is None:
+            return EnergyGrid()
+        default = EnergyGrid()
+        from_eV = table.number("from_eV", default.from_eV, example="0.0")
+        to_eV = table.number("to_eV", default.to_eV, example="1.0")
+        points = table.integer("points", default.points, example="2001", at_least=2)
+        if not to_eV > from_eV:
+            raise table.error(
+                "to_eV",
+                f"to_eV = {_fmt(to_eV)} must lie above from_eV = {_fmt(from_eV)}",
+                "make to_eV the upper end of the energy window, e.g. from_eV = 0.0 and to_eV = 1.0",
+            )
+        return EnergyGrid(from_eV, to_eV, points)
+
+    def model(self) -> ModelSpec:
+        table = self.root.table("model", _MODEL_KEYS, example="[model] with nonparabolic = true")
+        if table is None:
+            return ModelSpec()
+        default = ModelSpec()
+        nonparabolic = table.boolean("nonparabolic", default.nonparabolic)
+        slice_nm = table.number("slice_nm", None, example="0.1", above=0.0) if table.has("slice_nm") else None
+        max_levels = table.integer("max_levels", default.max_levels, example="4", at_least=1)
+        return ModelSpec(nonparabolic, slice_nm, max_levels)
+
+    # -- metrics -----------------------------------------------------------------------
+
+    def metric(
+        self, table: _Table, bias: BiasSweep, *, yield_allowed: bool | None
+    ) -> tuple[str, float | None]:
+        """Read ``metric`` and ``at_bias_V`` and check that the campaign can compute them.
+
+        ``yield_allowed``: ``None`` where yield is never a metric (tolerance windows),
+        else whether the file defines the tolerance windows a yield needs.
+        """
+        known = list(METRICS) + ([YIELD] if yield_allowed is not None else [])
+        name = table.string("metric", example='"pvcr"')
+        if name == YIELD and yield_allowed is None:
+            raise table.error(
+                "metric",
+                "the yield is the share of samples inside the windows, so it cannot be a window itself",
+                'choose a metric of the catalogue, e.g. metric = "resonance_energy_eV"',
+            )
+        if name not in known:
+            raise table.error(
+                "metric", f'"{name}" is not a metric of the catalogue', _rename_fix(name, known, "metrics")
+            )
+        if name == YIELD:
+            if not yield_allowed:
+                raise table.error(
+                    "metric",
+                    "yield needs growth-tolerance windows, but the file has no [[tolerance.spec]]",
+                    "add [tolerance] and at least one [[tolerance.spec]] window (metric, min, "
+                    "max), or choose another metric",
+                )
+            if table.has("at_bias_V"):
+                raise table.error("at_bias_V", "yield is not evaluated at a bias", "delete at_bias_V")
+            return name, None
+        info = METRICS[name]
+        at_bias_V = None
+        if info.takes_bias:
+            at_bias_V = table.number("at_bias_V", example="0.05")
+        elif table.has("at_bias_V"):
+            takes = ", ".join(n for n, i in METRICS.items() if i.takes_bias)
+            raise table.error(
+                "at_bias_V",
+                f"{name} is not evaluated at a stated bias",
+                f"delete at_bias_V (only {takes} takes one)",
+            )
+        if info.needs_iv:
+            if bias.steps < _MIN_IV_STEPS:
+                raise table.error(
+                    "metric",
+                    f"{name} needs an I–V sweep, but [bias] has steps = {bias.steps}",
+                    f"set steps of at least {_MIN_IV_STEPS} in [bias], e.g. steps = 51",
+                )
+            lo, hi = sorted((bias.from_V, bias.to_V))
+            if at_bias_V is not None and not lo - 1e-12 <= at_bias_V <= hi + 1e-12:
+                raise table.error(
+                    "at_bias_V",
+                    f"at_bias_V = {_fmt(at_bias_V)} V lies outside the [bias] sweep "
+                    f"{_fmt(bias.from_V)} to {_fmt(bias.to_V)} V",
+                    "choose a bias inside the sweep, or extend from_V/to_V in [bias]",
+                )
+        return name, at_bias_V
+
+    def bounds(self, table: _Table) -> tuple[float | None, float | None]:
+        lo = table.number("min", None, example="0.1") if table.has("min") else None
+        hi = table.number("max", None, example="0.2") if table.has("max") else None
+        if lo is None and hi is None:
+            raise table.error("min", "neither min nor max is given", "add min = ..., max = ... or both")
+        if lo is not None and hi is not None:
+            _check_order(table, lo, hi)
+        return lo, hi
+
+    def objectives(self, bias: BiasSweep, has_windows: bool) -> tuple[ObjectiveSpec, ...]:
+        tables = self.root.tables(
+            "objective", _OBJECTIVE_KEYS, example='[[objective]] metric = "pvcr" goal = "maximize"'
+        )
+        objectives = []
+        for table in tables:
+            metric, at_bias_V = self.metric(table, bias, yield_allowed=has_windows)
+            if table.has("goal") == table.has("target"):
+                problem = (
+                    "both goal and target are given"
+                    if table.has("goal")
+                    else "neither goal nor target is given"
+                )
+                raise table.error(
+                    "goal",
+                    problem,
+                    'give exactly one: goal = "maximize" or "minimize", or target = <value> to '
+                    "bring the metric close to it",
+                )
+            goal = table.string("goal", example='"maximize"', choices=_GOALS) if table.has("goal") else None
+            target = table.number("target", example="0.15") if table.has("target") else None
+            log = table.boolean("log", False)
+            if log:
+                if metric == YIELD or not METRICS[metric].positive:
+                    positive = ", ".join(n for n, i in METRICS.items() if i.positive)
+                    raise table.error(
+                        "log",
+                        f"log10 is taken only of metrics that are always positive, and {metric} is not",
+                        f"delete log, or use it with one of {positive}",
+                    )
+                if target is not None and not target > 0:
+                    raise table.error(
+                        "target",
+                        f"with log = true the target {_fmt(target)} must be positive",
+                        "give a positive target, e.g. 1e-3, or delete log",
+                    )
+            objectives.append(ObjectiveSpec(metric, goal, target, log, at_bias_V))
+        _check_unique(tables, objectives, "objective")
+        return tuple(objectives)
+
+    def constraints(self, bias: BiasSweep, has_windows: bool) -> tuple[ConstraintSpec, ...]:
+        tables = self.root.tables(
+            "constraint", _BOUNDED_KEYS, example='[[constraint]] metric = "peak_current_A_cm2" min = 1e5'
+        )
+        constraints = [
+            self.bounded(ConstraintSpec, table, bias, yield_allowed=has_windows) for table in tables
+        ]
+        _check_unique(tables, constraints, "constraint")
+        return tuple(constraints)
+
+    def bounded(self, cls, table: _Table, bias: BiasSweep, *, yield_allowed: bool | None):
+        metric, at_bias_V = self.metric(table, bias, yield_allowed=yield_allowed)
+        lo, hi = self.bounds(table)
+        return cls(metric, lo, hi, at_bias_V)
+
+    # -- search and tolerance ----------------------------------------------------------
+
+    def search(self, table: _Table | None) -> SearchSpec:
+        default = SearchSpec()
+        if table is None:
+            return default
+        return SearchSpec(
+            sampler=table.string("sampler", default.sampler, example='"nsga2"', choices=SAMPLERS),
+            trials=table.integer("trials", default.trials, example="1000", at_least=1),
+            batch=table.integer("batch", default.batch, example="32", at_least=1),
+            seed=table.integer("seed", None, example="1", at_least=0) if table.has("seed") else None,
+            timeout_h=table.number("timeout_h", None, example="8", above=0.0)
+            if table.has("timeout_h")
+            else None,
+        )
+
+    def tolerance(self, bias: BiasSweep, is_campaign: bool) -> ToleranceSpec | None:
+        table = self.root.table(
+            "tolerance", _TOLERANCE_KEYS, example="[tolerance] with thickness_sigma_ml = 0.5"
+        )
+        if table is None:
+            return None
+        default = ToleranceSpec()
+        robust = None
+        robust_table = table.table(
+            "robust", _ROBUST_KEYS, example="robust = { samples = 16, quantile = 0.1 }"
+        )
+        if robust_table is not None:
+            robust = self.robust(robust_table)
+            if not is_campaign:
+                self.warn(
+                    "tolerance.robust",
+                    "ignored, because this stack file searches nothing (it applies to campaigns)",
+                )
+        window_tables = table.tables(
+            "spec",
+            _BOUNDED_KEYS,
+            example='[[tolerance.spec]] metric = "resonance_energy_eV" min = 0.14 max = 0.16',
+        )
+        windows = tuple(self.bounded(WindowSpec, entry, bias, yield_allowed=None) for entry in window_tables)
+        _check_unique(window_tables, windows, "tolerance.spec")
+        return ToleranceSpec(
+            thickness_sigma_ml=table.number(
+                "thickness_sigma_ml", default.thickness_sigma_ml, example="0.5", at_least=0.0
+            ),
+            growth_rate_sigma=table.number(
+                "growth_rate_sigma", default.growth_rate_sigma, example="0.01", at_least=0.0, at_most=0.5
+            ),
+            fraction_sigma=table.number(
+                "fraction_sigma", default.fraction_sigma, example="0.005", at_least=0.0, at_most=1.0
+            ),
+            samples=table.integer("samples", default.samples, example="500", at_least=1),
+            seed=table.integer("seed", default.seed, example="0", at_least=0),
+            robust=robust,
+            windows=windows,
+        )
+
+    def robust(self, table: _Table) -> RobustSpec:
+        default = RobustSpec()
+        statistic = table.string("statistic", default.statistic, example='"quantile"', choices=_STATISTICS)
+        if statistic == "mean" and table.has("quantile"):
+            raise table.error(
+                "quantile",
+                'quantile is not used with statistic = "mean"',
+                'delete quantile, or set statistic = "quantile"',
+            )
+        return RobustSpec(
+            samples=table.integer("samples", default.samples, example="16", at_least=2),
+            quantile=table.number("quantile", default.quantile, example="0.1", above=0.0, at_most=0.5)
+            if statistic == "quantile"
+            else default.quantile,
+            statistic=statistic,
+        )
+
+
+def _check_order(table: _Table, lo: float, hi: float) -> None:
+    if lo > hi:
+        raise table.error(
+            "min",
+            f"min = {_fmt(lo)} is larger than max = {_fmt(hi)}",
+            f"swap them: min = {_fmt(hi)}, max = {_fmt(lo)}",
+        )
+
+
+def _fraction_not_used(table: _Table, names: tuple[str, ...]) -> InputError:
+    given = f'"{names[0]}" is not one' if len(names) == 1 else f"none of {_quoted(names)} is one"
+    return table.error(
+        "fraction",
+        f"fraction is only used with an alloy key ({', '.join(_materials.ALLOYS)}), and {given}",
+        'delete fraction, or write the alloy key with fraction, e.g. material = "AlGaAs" and fraction = 0.3',
+    )
+
+
+def _check_unique(tables: list[_Table], items: list, what: str) -> None:
+    first: dict[str, str] = {}
+    for table, item in zip(tables, items, strict=True):
+        if item.label in first:
+            raise InputError(
+                table.file,
+                table.path,
+                f"the same {what} as {first[item.label]} ({item.label})",
+                f"delete one of the two [[{what}]] tables",
+            )
+        first[item.label] = table.path
+
+
+# --------------------------------------------------------------------------------------
+# Search space
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Dimension:
+    """One independent search dimension: a searched value of an untied layer.
+
+    ``parameter`` is ``"material"``, ``"fraction"``, ``"thickness_ml"`` or
+    ``"thickness_nm"``; ``tied`` lists the layers that copy this value.
+    """
+
+    layer: str
+    parameter: str
+    domain: IntRange | FloatRange | Choices
+    tied: tuple[str, ...] = ()
+
+    @property
+    def size(self) -> int | None:
+        """Number of distinct values, ``None`` for a continuous range."""
+        return self.domain.size
+
+
+def search_dimensions(spec: StackSpec) -> tuple[Dimension, ...]:
+    """The independent search dimensions of a spec, in layer order (ties add none)."""
+    dimensions = []
+    for layer in spec.layers:
+        if layer.like is not None:
+            continue
+        tied = tuple(other.name for other in spec.layers if other.like == layer.name)
+        for parameter in ("material", "fraction", "thickness_ml", "thickness_nm"):
+            value = getattr(layer, parameter)
+            if isinstance(value, (IntRange, FloatRange, Choices)):
+                dimensions.append(Dimension(layer.name, parameter, value, tied))
+    return tuple(dimensions)
+
+
+def design_count(spec: StackSpec) -> int | None:
+    """Number of distinct designs of the search space, ``None`` if any range is continuous.
+
+    The product over independent layers of (thickness values) x (material and fraction
+    combinations); a searched fraction counts only for the alloy-key choices, which are
+    the only ones it applies to. Tied layers add nothing.
+    """
+    return _count_designs(spec, continuous_as_one=False)
+
+
+def _count_designs(spec: StackSpec, *, continuous_as_one: bool) -> int | None:
+    def size(value) -> int | None:
+        if isinstance(value, (IntRange, FloatRange)):
+            n = value.size
+            return 1 if n is None and continuous_as_one else n
+        return 1
+
+    total = 1
+    for layer in spec.layers:
+        if layer.like is not None:
+            continue
+        names = layer.material.values if isinstance(layer.material, Choices) else (layer.material,)
+        alloys = sum(name in _materials.ALLOYS for name in names)
+        fraction_size = size(layer.fraction) if alloys else 1
+        thickness_size = size(layer.thickness_ml if layer.thickness_ml is not None else layer.thickness_nm)
+        if thickness_size is None or fraction_size is None:
+            return None
+        total *= (len(names) - alloys + alloys * fraction_size) * thickness_size
+    return total
+
+
+# --------------------------------------------------------------------------------------
+# Description for `tunnelsmith check`
+# --------------------------------------------------------------------------------------
+
+
+def _range_text(value, unit: str = "", *, sizes: bool = True) -> str:
+    """A fixed value or a range as written in the file, optionally with its size."""
+    unit = f" {unit}" if unit else ""
+    if isinstance(value, IntRange):
+        return f"{value.min}–{value.max}{unit}" + (f" ({value.size} values)" if sizes else "")
+    if isinstance(value, FloatRange):
+        if value.size == 1:
+            return f"{_fmt(value.min)}{unit}"
+        text = f"{_fmt(value.min)}–{_fmt(value.max)}{unit}"
+        if value.step is None:
+            return text + " (continuous)" if sizes else text
+        return text + (
+            f" (step {_fmt(value.step)}, {value.size} values)" if sizes else f" step {_fmt(value.step)}"
+        )
+    return f"{_fmt(value)}{unit}"
+
+
+def _span_text(lo: float, hi: float, digits: str = ".2f") -> str:
+    lo_text, hi_text = f"{lo:{digits}}", f"{hi:{digits}}"
+    return lo_text if lo_text == hi_text else f"{lo_text}–{hi_text}"
+
+
+def _monolayers_nm(spec: StackSpec, material: str | Choices, fraction) -> tuple[float, float]:
+    """Smallest and largest monolayer thickness (nm) over a layer's possible materials."""
+    names = material.values if isinstance(material, Choices) else (material,)
+    values = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for name in names:
+            fractions = [None]
+            if name in _materials.ALLOYS:
+                fractions = [fraction.min, fraction.max] if isinstance(fraction, FloatRange) else [fraction]
+            for x in fractions:
+                values.append(
+                    _materials.material(
+                        name, spec.temperature_K, fraction=x, user=spec.user_materials
+                    ).monolayer_nm
+                )
+    return min(values), max(values)
+
+
+def _thickness_text(spec: StackSpec, layer: LayerSpec) -> str:
+    ml_lo, ml_hi = _monolayers_nm(spec, layer.material, layer.fraction)
+    if layer.thickness_ml is not None:
+        t = layer.thickness_ml
+        n_lo, n_hi = (t.min, t.max) if isinstance(t, IntRange) else (t, t)
+        return f"{_range_text(t, 'ml')} = {_span_text(n_lo * ml_lo, n_hi * ml_hi)} nm"
+    t = layer.thickness_nm
+    d_lo, d_hi = (t.min, t.max) if isinstance(t, FloatRange) else (t, t)
+    return f"{_range_text(t, 'nm')} ≈ {_span_text(d_lo / ml_hi, d_hi / ml_lo, '.1f')} ml"
+
+
+def _material_text(material: str | Choices, fraction) -> str:
+    text = " | ".join(material.values) if isinstance(material, Choices) else material
+    if isinstance(material, Choices):
+        text = f"one of {text}"
+    if fraction is not None:
+        text += f", fraction {_range_text(fraction)}"
+    return text
+
+
+def _contact_text(contact: ContactSpec) -> str:
+    fraction = f" (fraction {_fmt(contact.fraction)})" if contact.fraction is not None else ""
+    return f"{contact.material}{fraction}, doping {contact.doping_cm3:.3g} cm^-3"
+
+
+def _computation_text(spec: StackSpec) -> str:
+    grid = spec.energy
+    energy = f"zero-bias transmission ({grid.points} energies, {_fmt(grid.from_eV)} to {_fmt(grid.to_eV)} eV)"
+    sweep = f"I–V sweep of {spec.bias.steps} biases ({_fmt(spec.bias.from_V)} to {_fmt(spec.bias.to_V)} V)"
+    if not spec.is_campaign:
+        return f"{energy} + {sweep} (a stack is solved in full)"
+    if spec.needs_iv:
+        return f"{energy} + {sweep}"
+    return f"{energy} only"
+
+
+def describe(spec: StackSpec) -> str:
+    """Human-readable summary of a validated spec, as printed by ``tunnelsmith check``.
+
+    Lists temperature, contacts, every layer (material or choices, fraction, thickness as
+    a range in monolayers and in nm), the search space with the size of each dimension
+    and the number of distinct designs, objectives, constraints, the computations they
+    need, search and tolerance settings, and warnings.
+    """
+    kind = "campaign" if spec.is_campaign else "stack"
+    lines = [f'{kind} "{spec.name}" ({spec.path}, sha256 {spec.sha256[:12]})']
+    if spec.description:
+        lines.append(f"  {spec.description}")
+    lines.append(f"temperature: {_fmt(spec.temperature_K)} K")
+    lines.append(f"emitter:   {_contact_text(spec.emitter)}")
+    lines.append(f"collector: {_contact_text(spec.collector)}")
+    lines.append("layers (emitter → collector):")
+    width = max(len(layer.name) for layer in spec.layers)
+    for index, layer in enumerate(spec.layers, start=1):
+        tie = f" [tied to {layer.like}]" if layer.like else ""
+        absorption = f", absorption {_fmt(layer.absorption_eV)} eV" if layer.absorption_eV else ""
+        lines.append(
+            f"  {index:>2} {layer.name:<{width}}  {_material_text(layer.material, layer.fraction)}; "
+            f"{_thickness_text(spec, layer)}{absorption}{tie}"
+        )
+    if spec.user_materials:
+        lines.append(f"user materials: {', '.join(spec.user_materials)}")
+
+    if spec.is_campaign:
+        dimensions = search_dimensions(spec)
+        lines.append(f"search space: {len(dimensions)} independent dimensions (tied layers add none)")
+        for dim in dimensions:
+            unit = {"thickness_ml": "ml", "thickness_nm": "nm"}.get(dim.parameter, "")
+            domain = (
+                " | ".join(dim.domain.values)
+                if isinstance(dim.domain, Choices)
+                else _range_text(dim.domain, unit, sizes=False)
+            )
+            size = "continuous" if dim.size is None else f"{dim.size} values"
+            notes = f", shared with {', '.join(dim.tied)}" if dim.tied else ""
+            if dim.parameter == "fraction":
+                layer = next(layer for layer in spec.layers if layer.name == dim.layer)
+                if isinstance(layer.material, Choices):
+                    alloys = [n for n in layer.material.values if n in _materials.ALLOYS]
+                    if len(alloys) < layer.material.size:
+                        notes += f", applies to {' and '.join(alloys)} only"
+            lines.append(f"  {dim.layer}.{dim.parameter}: {size} — {domain}{notes}")
+        count = design_count(spec)
+        if count is None:
+            continuous = ", ".join(f"{d.layer}.{d.parameter}" for d in dimensions if d.size is None)
+            discrete = _count_designs(spec, continuous_as_one=True)
+            lines.append(
+                f"  distinct designs: unlimited (continuous in {continuous}) × {discrete:,} "
+                "discrete combinations"
+            )
+        else:
+            lines.append(f"  distinct designs: {count:,}")
+        lines.append("objectives:")
+        lines.extend(f"  {objective.direction} {objective.label}" for objective in spec.objectives)
+        if spec.constraints:
+            lines.append("constraints:")
+            lines.extend(f"  {constraint.label}" for constraint in spec.constraints)
+        search = spec.search
+        extras = "".join(
+            [
+                f", seed {search.seed}" if search.seed is not None else "",
+                f", time limit {_fmt(search.timeout_h)} h" if search.timeout_h is not None else "",
+            ]
+        )
+        lines.append(
+            f"search: sampler {search.sampler}, {search.trials:,} trials in batches of {search.batch}{extras}"
+        )
+    lines.append(f"computation: {_computation_text(spec)}")
+
+    tolerance = spec.tolerance
+    if tolerance is not None:
+        lines.append(
+            f"tolerance: {tolerance.samples} samples, thickness σ {_fmt(tolerance.thickness_sigma_ml)} ml, "
+            f"growth rate σ {tolerance.growth_rate_sigma:.3g}, fraction σ "
+            f"{_fmt(tolerance.fraction_sigma)}, seed {tolerance.seed}"
+        )
+        if tolerance.robust is not None:
+            robust = tolerance.robust
+            statistic = f"{_fmt(robust.quantile)} quantile" if robust.statistic == "quantile" else "mean"
+            lines.append(f"  robust objectives: {statistic} over {robust.samples} grown variants per trial")
+        lines.extend(f"  window {window.label}" for window in tolerance.windows)
+    if spec.warnings:
+        lines.append("warnings:")
+        lines.extend(f"  {warning}" for warning in spec.warnings)
+    return "\n".join(lines)
