@@ -25,6 +25,10 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     temporary = Path(temporary)
     try:
         yield temporary
+        # mkstemp creates owner-only files; give results the usual umask permissions.
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(temporary, 0o666 & ~umask)
         os.replace(temporary, path)
     finally:
         temporary.unlink(missing_ok=True)
