@@ -9,6 +9,7 @@ slightly different compositions costs one call per layer.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -78,7 +79,10 @@ def material_arrays(base: np.ndarray, fraction: np.ndarray, temperature_K: float
         if name in materials.ALLOYS:
             values = materials.alloy_arrays(name, fraction[where], temperature_K)
         else:
-            record = materials.material(name, temperature_K, user=user)
+            with warnings.catch_warnings():
+                # The spec already reported indirect-valley materials once, when it was loaded.
+                warnings.simplefilter("ignore", materials.IndirectValleyWarning)
+                record = materials.material(name, temperature_K, user=user)
             values = {key: getattr(record, key) for key in keys}
         for key in keys:
             out[key][where] = values[key]
