@@ -10,16 +10,29 @@ batch axes and an energy axis.
 >>> physics.transmission(np.array([0.1]), [0.0, 0.3, 0.0], [0.067] * 3, [0, 5.0, 0])  # doctest: +SKIP
 """
 
+from physics.current import IVCurve, current_density, fermi_level_eV
 from physics.device import Device
+from physics.metrics import CATALOGUE, Evaluation, MetricRequest, evaluate
 from physics.profile import DEFAULT_SLICE_nm, Profile, biased_profile
+from physics.resonance import Resonances, closed_box_states, find_resonances
 from physics.transfer import Scattering, log10_transmission, scattering, transmission
 
 __all__ = [
+    "CATALOGUE",
     "DEFAULT_SLICE_nm",
     "Device",
+    "Evaluation",
+    "IVCurve",
+    "MetricRequest",
     "Profile",
+    "Resonances",
     "Scattering",
     "biased_profile",
+    "closed_box_states",
+    "current_density",
+    "evaluate",
+    "fermi_level_eV",
+    "find_resonances",
     "log10_transmission",
     "scattering",
     "transmission",

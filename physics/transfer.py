@@ -13,8 +13,8 @@ Raw 2x2 transfer matrices overflow across thick or high barriers. This kernel in
 runs the *reflection-coefficient recursion* from the collector towards the emitter
 (the scattering form of the transfer-matrix method; see Ko & Inkson, Phys. Rev. B 38,
 9945, 1988): the ratio ``rho`` of left- to right-going amplitude is carried across each
-layer by ``exp(2 i k d)``, which never grows because the branch ``Im k >= 0`` is used in
-every inner layer. The transmitted amplitude is the product of the interface factors
+layer by ``exp(2 i k d)``, which never grows because at real energies every inner
+layer takes the branch ``Im k >= 0`` (continued analytically for complex energies). The transmitted amplitude is the product of the interface factors
 ``tau_j`` and the layer phases ``exp(i k_j d_j)``; it is accumulated as a complex
 logarithm, so transmissions far below the smallest double (1e-308) stay meaningful
 through :attr:`Scattering.log10_transmission`.
@@ -194,12 +194,18 @@ def _wave_into(
     energy_mass = _energy_dependent_mass(kinetic_eV, mass, gap_eV, out=mass_buffer)
     k = np.multiply(kinetic_eV, energy_mass, out=k_out)
     k /= HBAR2_2M0_eV_nm2
-    # Adding +0 turns a -0 imaginary part into +0, so that sqrt(-x) = +i sqrt(x) also
-    # for real energies: the outgoing (contacts) and decaying (inner layers) branch.
+    # Adding +0 turns a -0 imaginary part into +0, so that sqrt(-x) = +i sqrt(x) for
+    # real energies; the principal branch is then the outgoing wave of a contact.
     k += 0.0
     np.sqrt(k, out=k)
     if decaying:
-        np.negative(k, out=k, where=k.imag < 0.0)
+        # Inner layers: keep Im k >= 0 on the real axis (k > 0 above the edge, i|k|
+        # below) and continue analytically into the lower half plane of energy, with
+        # the cut on the negative imaginary k^2 axis (principal k below the -45 degree
+        # line is flipped). A plain "flip to Im k >= 0" would jump where a well's k^2
+        # crosses the positive real axis, which the pole search does, and give a layer
+        # equal to its neighbour -k: a vanishing interface denominator.
+        np.negative(k, out=k, where=k.imag < -k.real)
     np.divide(k, energy_mass, out=q_out)
 
 
@@ -223,8 +229,9 @@ def wavevector_per_nm(
         Gap for the non-parabolic mass ``m(E) = m (1 + (E - U)/E_g)``; ``None`` or
         ``inf`` for a parabolic band.
     decaying : bool
-        ``True`` picks the branch with ``Im k >= 0`` (inner layers: evanescent waves
-        decay to the right); ``False`` keeps numpy's principal branch (contacts:
+        ``True`` picks the inner-layer branch: ``Im k >= 0`` for real energies
+        (evanescent waves decay to the right), continued analytically into the lower
+        half plane of complex energy; ``False`` keeps numpy's principal branch (contacts:
         outgoing waves also for complex energies).
 
     Returns

@@ -737,12 +737,17 @@ def test_results_are_independent_of_later_calls_and_other_threads():
 
 
 def test_wavevector_branches():
-    """Inner layers: Im k >= 0 (decaying); contacts: numpy's principal branch, which for
-    energies below the real axis gives the outgoing wave (Re k > 0)."""
+    """Inner layers: Im k >= 0 on the real axis (decaying), continued analytically
+    into the lower half plane (no jump where a well's k^2 crosses the positive real
+    axis); contacts: numpy's principal branch, which for energies below the real axis
+    gives the outgoing wave (Re k > 0)."""
     energy = np.array([0.3 - 0.05j, -0.2 - 0.05j, 0.3 + 0.0j, -0.2 + 0.0j])
     k_inner, q_inner = wavevector_per_nm(energy, 0.0, GAAS_MASS)
     k_contact, _ = wavevector_per_nm(energy, 0.0, GAAS_MASS, decaying=False)
-    assert np.all(k_inner.imag >= 0.0)
+    assert np.all(k_inner[1:].imag >= 0.0)  # barrier below the axis, and the real axis
+    assert k_inner[0].real > 0.0  # well below the axis: continuous from k > 0
+    above, below = wavevector_per_nm(np.array([0.3 + 1e-9j, 0.3 - 1e-9j]), 0.0, GAAS_MASS)[0]
+    assert abs(above - below) < 1e-6 * abs(above)
     np.testing.assert_allclose(k_contact, np.sqrt(energy * GAAS_MASS / HBAR2_2M0_eV_nm2))
     assert k_contact[0].real > 0.0 and k_contact[0].imag < 0.0
     np.testing.assert_allclose(k_inner**2, energy * GAAS_MASS / HBAR2_2M0_eV_nm2, rtol=1e-14)

@@ -1,0 +1,331 @@
+"""Figures of merit of a batch of stacks, computing only what the requests need.
+
+Definitions (the catalogue keys are the names used in campaign files):
+
+- ``resonance_energy_eV``, ``resonance_width_eV``: the first quasi-bound level inside
+  the energy grid at zero bias (:func:`physics.resonance.find_resonances`) and its FWHM.
+- ``transmission_contrast``: coherent transmission at the first level over the smallest
+  transmission on the energy grid between the first and the second level (or, without a
+  second level, up to the end of the grid). Computed from ``log10 T``, so it stays finite
+  for transmissions far below 1e-308.
+- ``peak_current_A_cm2``, ``peak_voltage_V``: the first interior local maximum of
+  ``|J|`` along the bias sweep, refined by the parabola through it and its neighbours.
+- ``valley_current_A_cm2``, ``valley_voltage_V``: the first local minimum after the
+  peak, refined likewise.
+- ``pvcr``: peak over valley current; ``swing_product_W_cm2``:
+  ``(J_peak - J_valley) |V_valley - V_peak|``.
+- ``leakage_A_cm2``: the current density at the request's ``at_bias_V``, computed at
+  that bias (appended to the sweep), not interpolated.
+- ``total_thickness_nm``: the sum of the layers between the contacts.
+
+A metric that is undefined for a stack is NaN there, with the reason in
+:attr:`Evaluation.reasons`; it never raises. Model limits: coherent, single-valley,
+flat-band-plus-linear-drop transport (no scattering unless an optical potential is set,
+no X-valley or phonon-assisted current, no space charge) overestimates the
+peak-to-valley ratio; the metrics rank designs, they do not replace measurements.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+
+from physics.current import DEFAULT_NODES, current_density
+from physics.device import Device
+from physics.profile import biased_profile
+from physics.resonance import find_resonances, transmission_peaks
+from physics.transfer import scattering
+
+
+@dataclass(frozen=True)
+class MetricInfo:
+    """Catalogue entry: what a metric is and what it needs.
+
+    ``needs`` is ``"zero_bias"`` (zero-bias transmission and levels) or ``"iv"`` (the
+    current); ``takes_bias`` marks metrics evaluated at a requested bias.
+    """
+
+    name: str
+    units: str
+    long_name: str
+    needs: str
+    takes_bias: bool = False
+
+
+CATALOGUE: dict[str, MetricInfo] = {
+    info.name: info
+    for info in (
+        MetricInfo("resonance_energy_eV", "eV", "first quasi-bound level at zero bias", "zero_bias"),
+        MetricInfo("resonance_width_eV", "eV", "FWHM of the first quasi-bound level", "zero_bias"),
+        MetricInfo("transmission_contrast", "1", "peak over off-resonance transmission", "zero_bias"),
+        MetricInfo("peak_current_A_cm2", "A/cm^2", "first current peak", "iv"),
+        MetricInfo("peak_voltage_V", "V", "bias of the first current peak", "iv"),
+        MetricInfo("valley_current_A_cm2", "A/cm^2", "current valley after the peak", "iv"),
+        MetricInfo("valley_voltage_V", "V", "bias of the current valley", "iv"),
+        MetricInfo("pvcr", "1", "peak-to-valley current ratio", "iv"),
+        MetricInfo("swing_product_W_cm2", "W/cm^2", "(J_peak - J_valley) (V_valley - V_peak)", "iv"),
+        MetricInfo("leakage_A_cm2", "A/cm^2", "current density at a given bias", "iv", takes_bias=True),
+        MetricInfo("total_thickness_nm", "nm", "thickness between the contacts", "zero_bias"),
+    )
+}
+
+_LEVEL_METRICS = {"resonance_energy_eV", "resonance_width_eV", "transmission_contrast"}
+_SWEEP_METRICS = {
+    "peak_current_A_cm2",
+    "peak_voltage_V",
+    "valley_current_A_cm2",
+    "valley_voltage_V",
+    "pvcr",
+    "swing_product_W_cm2",
+}
+
+
+@dataclass(frozen=True)
+class MetricRequest:
+    """One metric to compute; ``at_bias_V`` only for metrics that take a bias."""
+
+    name: str
+    at_bias_V: float | None = None
+
+    @property
+    def label(self) -> str:
+        """Key of the metric in :attr:`Evaluation.values` (``name`` or ``name@0.1V``)."""
+        return self.name if self.at_bias_V is None else f"{self.name}@{self.at_bias_V:g}V"
+
+
+@dataclass
+class Evaluation:
+    """Metrics and the curves they came from, for a batch of ``B`` stacks.
+
+    Attributes
+    ----------
+    values : dict[str, ndarray (B,)]
+        Keyed by :attr:`MetricRequest.label`; NaN where undefined.
+    reasons : dict[str, ndarray (B,) of str]
+        ``""`` where the value is defined, otherwise why it is NaN.
+    energy_eV : ndarray (nE,)
+    transmission : ndarray (B, nE)
+        Coherent transmission at zero bias on ``energy_eV`` (always computed).
+    resonance_energy_eV, resonance_width_eV : ndarray (B, nV or 1, levels)
+        Levels per sweep bias when the sweep was computed (those that carry current, see
+        :class:`physics.current.IVCurve`), else the zero-bias levels inside the energy
+        grid; NaN-filled when no requested metric needed levels.
+    bias_V : ndarray (nV,) or None
+    current_density_A_cm2 : ndarray (B, nV) or None
+        The bias sweep, present when a peak/valley metric was requested (a request for
+        ``leakage_A_cm2`` alone computes only its own biases).
+    """
+
+    values: dict[str, np.ndarray]
+    reasons: dict[str, np.ndarray]
+    energy_eV: np.ndarray
+    transmission: np.ndarray
+    resonance_energy_eV: np.ndarray
+    resonance_width_eV: np.ndarray
+    bias_V: np.ndarray | None = None
+    current_density_A_cm2: np.ndarray | None = None
+
+
+def _check(requests: Sequence[MetricRequest]) -> None:
+    for request in requests:
+        info = CATALOGUE.get(request.name)
+        if info is None:
+            raise ValueError(f"unknown metric {request.name!r}; known: {', '.join(CATALOGUE)}")
+        if info.takes_bias != (request.at_bias_V is not None):
+            need = "needs" if info.takes_bias else "takes no"
+            raise ValueError(f"metric {request.name!r} {need} at_bias_V")
+
+
+def needs_iv(requests: Sequence[MetricRequest]) -> bool:
+    """True when any request needs a current (``needs == "iv"``)."""
+    return any(CATALOGUE[r.name].needs == "iv" for r in requests)
+
+
+def _parabola_vertex(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Vertex of the parabola through three points per row, shape (..., 3) -> (...).
+
+    Falls back to the middle point where the three points are collinear or the vertex
+    would leave the bracket of the outer points.
+    """
+    x0, x1, x2 = np.moveaxis(x, -1, 0)
+    y0, y1, y2 = np.moveaxis(y, -1, 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # Newton form y = y0 + d01 (x - x0) + c (x - x0)(x - x1): slope at x1, curvature 2c.
+        d01 = (y1 - y0) / (x1 - x0)
+        d12 = (y2 - y1) / (x2 - x1)
+        curvature = (d12 - d01) / (x2 - x0)
+        slope_at_x1 = d01 + curvature * (x1 - x0)
+        shift = -slope_at_x1 / (2.0 * curvature)
+        vertex_x = x1 + shift
+        vertex_y = y1 + 0.5 * slope_at_x1 * shift
+    lo, hi = np.minimum(x0, x2), np.maximum(x0, x2)
+    usable = np.isfinite(vertex_x) & (curvature != 0.0) & (vertex_x >= lo) & (vertex_x <= hi)
+    return np.where(usable, vertex_x, x1), np.where(usable, vertex_y, y1)
+
+
+def _first_index(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Index of the first True per row and whether there is one."""
+    return np.argmax(mask, axis=-1), np.any(mask, axis=-1)
+
+
+def _peak_and_valley(bias_V: np.ndarray, current: np.ndarray) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """Peak/valley metrics of ``|J|`` along the sweep: name -> (value, reason)."""
+    magnitude = np.abs(current)
+    n_stacks, n_bias = magnitude.shape
+    values = {name: np.full(n_stacks, np.nan) for name in _SWEEP_METRICS}
+    reason = np.full(n_stacks, "", dtype=object)
+    if n_bias < 3:
+        reason[:] = "the bias sweep has fewer than 3 points"
+        return {name: (value, reason.astype(str)) for name, value in values.items()}
+    left, middle, right = magnitude[:, :-2], magnitude[:, 1:-1], magnitude[:, 2:]
+    position = np.arange(1, n_bias - 1)
+    peak, has_peak = _first_index((middle > left) & (middle >= right))
+    peak = peak + 1
+    after = position[None, :] > peak[:, None]
+    valley, has_valley = _first_index((middle < left) & (middle <= right) & after)
+    valley = valley + 1
+    has_valley &= has_peak
+    reason[~has_valley] = "no valley after the current peak inside the bias sweep"
+    reason[~has_peak] = "no current peak inside the bias sweep"
+
+    def refined(index):
+        window = np.clip(index[:, None] + np.arange(-1, 2), 0, n_bias - 1)
+        volts = np.broadcast_to(bias_V, magnitude.shape)
+        return _parabola_vertex(np.take_along_axis(volts, window, -1), np.take_along_axis(magnitude, window, -1))
+
+    peak_V, peak_J = refined(peak)
+    valley_V, valley_J = refined(valley)
+    values["peak_voltage_V"] = np.where(has_peak, peak_V, np.nan)
+    values["peak_current_A_cm2"] = np.where(has_peak, peak_J, np.nan)
+    values["valley_voltage_V"] = np.where(has_valley, valley_V, np.nan)
+    values["valley_current_A_cm2"] = np.where(has_valley, valley_J, np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        values["pvcr"] = np.where(has_valley, peak_J / valley_J, np.nan)
+    values["swing_product_W_cm2"] = np.where(has_valley, (peak_J - valley_J) * np.abs(valley_V - peak_V), np.nan)
+    reasons = {name: np.where(has_valley, "", reason).astype(str) for name in _SWEEP_METRICS}
+    for name in ("peak_voltage_V", "peak_current_A_cm2"):
+        reasons[name] = np.where(has_peak, "", reason).astype(str)
+    return {name: (values[name], reasons[name]) for name in _SWEEP_METRICS}
+
+
+def _level_metrics(device, profile_arrays, energy, log10_t, max_levels):
+    """Zero-bias level metrics: name -> (value, reason), and the levels (B, 1, levels)."""
+    n_stacks = device.n_stacks
+    starts = transmission_peaks(energy, log10_t, max_levels + 2)
+    levels = find_resonances(
+        **profile_arrays,
+        window_eV=(energy[0], energy[-1]),
+        max_levels=max_levels,
+        start_eV=starts,
+        scan_points=0,
+    )
+    first, width = levels.energy_eV[:, 0], levels.width_eV[:, 0]
+    found = np.isfinite(first)
+    no_level = np.where(found, "", "no resonance in the energy window").astype(str)
+
+    # Transmission at the first level (a grid may straddle a narrow peak).
+    at_level = np.where(found, first, energy[0])[:, None]
+    log10_peak = scattering(at_level, **profile_arrays).log10_transmission[:, 0]
+    second = levels.energy_eV[:, 1] if max_levels > 1 else np.full(n_stacks, np.nan)
+    end = np.where(np.isfinite(second), second, energy[-1])
+    between = (energy[None, :] > first[:, None]) & (energy[None, :] < end[:, None])
+    log10_min = np.min(np.where(between, log10_t, np.inf), axis=-1)
+    has_between = np.any(between, axis=-1)
+    with np.errstate(over="ignore", invalid="ignore"):
+        contrast = 10.0 ** (log10_peak - log10_min)
+    contrast_reason = np.where(
+        ~found,
+        "no resonance in the energy window",
+        np.where(has_between, "", "no energy grid point between the first level and the next"),
+    ).astype(str)
+    metrics = {
+        "resonance_energy_eV": (np.where(found, first, np.nan), no_level),
+        "resonance_width_eV": (np.where(found, width, np.nan), no_level),
+        "transmission_contrast": (np.where(found & has_between, contrast, np.nan), contrast_reason),
+    }
+    return metrics, levels
+
+
+def evaluate(
+    device: Device,
+    requests: Sequence[MetricRequest],
+    *,
+    energy_eV,
+    bias_V,
+    max_levels: int = 4,
+    nodes: int = DEFAULT_NODES,
+) -> Evaluation:
+    """Compute the requested metrics of every stack.
+
+    Parameters
+    ----------
+    device : Device
+        ``B`` stacks.
+    requests : sequence of MetricRequest
+    energy_eV : array_like (nE,)
+        Ascending energy grid of the zero-bias transmission (also the window of the
+        zero-bias level search).
+    bias_V : array_like (nV,)
+        Bias sweep for the peak/valley metrics.
+    max_levels : int
+        Levels searched and reported per bias.
+    nodes : int
+        Energy nodes per bias of the current integral.
+
+    Returns
+    -------
+    Evaluation
+    """
+    _check(requests)
+    names = {r.name for r in requests}
+    energy = np.asarray(energy_eV, float)
+    n_stacks = device.n_stacks
+    zero = biased_profile(device, [0.0])
+    zero_arrays = {
+        key: (None if value is None else value[:, 0]) for key, value in zero.arrays.items()
+    }
+    result = scattering(energy, **zero_arrays)
+    values: dict[str, np.ndarray] = {}
+    reasons: dict[str, np.ndarray] = {}
+    computed: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+    no_levels = np.full((n_stacks, 1, max_levels), np.nan)
+    level_energy, level_width = no_levels, no_levels
+
+    if names & _LEVEL_METRICS:
+        metrics, levels = _level_metrics(device, zero_arrays, energy, result.log10_transmission, max_levels)
+        computed.update(metrics)
+        level_energy, level_width = levels.energy_eV[:, None], levels.width_eV[:, None]
+
+    sweep = np.asarray(bias_V, float) if names & _SWEEP_METRICS else np.zeros(0)
+    leakage_bias = sorted({float(r.at_bias_V) for r in requests if r.name == "leakage_A_cm2"})
+    swept_current = None
+    if sweep.size or leakage_bias:
+        iv = current_density(device, np.concatenate([sweep, leakage_bias]), nodes=nodes, max_levels=max_levels)
+        current = iv.current_density_A_cm2
+        if sweep.size:
+            swept_current = current[:, : sweep.size]
+            computed.update(_peak_and_valley(sweep, swept_current))
+            level_energy = iv.resonances.energy_eV[:, : sweep.size]
+            level_width = iv.resonances.width_eV[:, : sweep.size]
+        for k, bias in enumerate(leakage_bias):
+            label = MetricRequest("leakage_A_cm2", bias).label
+            computed[label] = (current[:, sweep.size + k], np.full(n_stacks, "", dtype=str))
+    if "total_thickness_nm" in names:
+        computed["total_thickness_nm"] = (device.total_thickness_nm, np.full(n_stacks, "", dtype=str))
+
+    for request in requests:
+        value, reason = computed[request.label]
+        values[request.label] = np.asarray(value, float)
+        reasons[request.label] = reason
+    return Evaluation(
+        values=values,
+        reasons=reasons,
+        energy_eV=energy,
+        transmission=result.transmission,
+        resonance_energy_eV=level_energy,
+        resonance_width_eV=level_width,
+        bias_V=sweep if sweep.size else None,
+        current_density_A_cm2=swept_current,
+    )
