@@ -40,25 +40,8 @@ import numpy as np
 from optimize.errors import InputError
 from physics import materials as _materials
 
-try:
-    from physics.metrics import MetricRequest
-except ModuleNotFoundError as _exc:  # physics.metrics not present in this tree yet
-    if _exc.name != "physics.metrics":
-        raise
-
-    @dataclass(frozen=True)
-    class MetricRequest:
-        """One metric to evaluate, optionally at a stated bias (V)."""
-
-        name: str
-        at_bias_V: float | None = None
-
-        @property
-        def label(self) -> str:
-            """``name``, or ``name@<bias>V`` for metrics evaluated at a bias."""
-            if self.at_bias_V is None:
-                return self.name
-            return f"{self.name}@{self.at_bias_V:g}V"
+from physics.metrics import CATALOGUE as METRICS
+from physics.metrics import MetricInfo, MetricRequest
 
 
 __all__ = [
@@ -94,34 +77,8 @@ __all__ = [
 # --------------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class MetricInfo:
-    """What the file format needs to know about a catalogue metric.
-
-    ``needs_iv``: computed from the I–V sweep (else from zero-bias transmission alone);
-    ``takes_bias``: evaluated at a stated ``at_bias_V``; ``positive``: strictly positive
-    wherever defined, so ``log = true`` is meaningful.
-    """
-
-    needs_iv: bool
-    takes_bias: bool
-    positive: bool
-
-
-#: The metric catalogue of design section 3, keyed by the names used in campaign files.
-METRICS: dict[str, MetricInfo] = {
-    "resonance_energy_eV": MetricInfo(needs_iv=False, takes_bias=False, positive=False),
-    "resonance_width_eV": MetricInfo(needs_iv=False, takes_bias=False, positive=True),
-    "transmission_contrast": MetricInfo(needs_iv=False, takes_bias=False, positive=True),
-    "peak_current_A_cm2": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
-    "peak_voltage_V": MetricInfo(needs_iv=True, takes_bias=False, positive=False),
-    "valley_current_A_cm2": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
-    "valley_voltage_V": MetricInfo(needs_iv=True, takes_bias=False, positive=False),
-    "pvcr": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
-    "swing_product_W_cm2": MetricInfo(needs_iv=True, takes_bias=False, positive=True),
-    "leakage_A_cm2": MetricInfo(needs_iv=True, takes_bias=True, positive=True),
-    "total_thickness_nm": MetricInfo(needs_iv=False, takes_bias=False, positive=True),
-}
+# The metric catalogue of design section 3 (names used in campaign files) is
+# physics.metrics.CATALOGUE, imported above as METRICS.
 
 #: Share of Monte Carlo growth samples meeting every [[tolerance.spec]] window.
 YIELD = "yield"

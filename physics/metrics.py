@@ -44,7 +44,8 @@ class MetricInfo:
     """Catalogue entry: what a metric is and what it needs.
 
     ``needs`` is ``"zero_bias"`` (zero-bias transmission and levels) or ``"iv"`` (the
-    current); ``takes_bias`` marks metrics evaluated at a requested bias.
+    current); ``takes_bias`` marks metrics evaluated at a requested bias; ``positive``
+    metrics are strictly positive wherever defined, so their logarithm is meaningful.
     """
 
     name: str
@@ -52,18 +53,24 @@ class MetricInfo:
     long_name: str
     needs: str
     takes_bias: bool = False
+    positive: bool = True
+
+    @property
+    def needs_iv(self) -> bool:
+        """Whether the metric comes from the I–V sweep (else from zero bias alone)."""
+        return self.needs == "iv"
 
 
 CATALOGUE: dict[str, MetricInfo] = {
     info.name: info
     for info in (
-        MetricInfo("resonance_energy_eV", "eV", "first quasi-bound level at zero bias", "zero_bias"),
+        MetricInfo("resonance_energy_eV", "eV", "first quasi-bound level at zero bias", "zero_bias", positive=False),
         MetricInfo("resonance_width_eV", "eV", "FWHM of the first quasi-bound level", "zero_bias"),
         MetricInfo("transmission_contrast", "1", "peak over off-resonance transmission", "zero_bias"),
         MetricInfo("peak_current_A_cm2", "A/cm^2", "first current peak", "iv"),
-        MetricInfo("peak_voltage_V", "V", "bias of the first current peak", "iv"),
+        MetricInfo("peak_voltage_V", "V", "bias of the first current peak", "iv", positive=False),
         MetricInfo("valley_current_A_cm2", "A/cm^2", "current valley after the peak", "iv"),
-        MetricInfo("valley_voltage_V", "V", "bias of the current valley", "iv"),
+        MetricInfo("valley_voltage_V", "V", "bias of the current valley", "iv", positive=False),
         MetricInfo("pvcr", "1", "peak-to-valley current ratio", "iv"),
         MetricInfo("swing_product_W_cm2", "W/cm^2", "(J_peak - J_valley) (V_valley - V_peak)", "iv"),
         MetricInfo("leakage_A_cm2", "A/cm^2", "current density at a given bias", "iv", takes_bias=True),
