@@ -143,6 +143,7 @@ from optuna.trial import FrozenTrial, TrialState
 from optimize import objectives as objectives_module
 from optimize import space
 from optimize.errors import InputError
+from optimize.io import write_text
 from physics.materials import IndirectValleyWarning
 
 __all__ = [
@@ -155,7 +156,6 @@ __all__ = [
     "open_study",
     "redact_url",
     "run_campaign",
-    "write_atomic",
 ]
 
 JOURNAL_NAME = "campaign.journal"
@@ -228,24 +228,6 @@ def redact_url(url: str | None) -> str | None:
     query = urlencode([(k, v) for k, v in parse_qsl(query, keep_blank_values=True) if k.lower() != "password"])
     return f"{parts.scheme}://{netloc}{parts.path}" + (f"?{query}" if query else "") + \
         (f"#{parts.fragment}" if parts.fragment else "")
-
-
-def write_atomic(path: str | os.PathLike, write) -> Path:
-    """Write a result file under a temporary name in its directory, then rename it.
-
-    ``write(temporary_path)`` produces the file (``dataset.to_netcdf``,
-    ``figure.savefig``); :func:`os.replace` then moves it into place atomically, so a
-    reader never sees a half-written file.
-    """
-    from optimize.io import atomic_path
-
-    with atomic_path(path) as temporary:
-        write(temporary)
-        # The temporary file is private (mode 0600); results get the usual permissions.
-        mask = os.umask(0)
-        os.umask(mask)
-        os.chmod(temporary, 0o666 & ~mask)
-    return Path(path)
 
 
 def default_run_dir(spec) -> Path:
@@ -1211,7 +1193,7 @@ def _run(spec, run_dir: Path, url: str | None, budget: int, deadline: float | No
                                  search_space=space.distributions(spec), batch=spec.search.batch,
                                  shared_seed=int(study.user_attrs.get("sampler_seed", 0)), spec_path=str(spec.path))
     if main:
-        write_atomic(run_dir / CAMPAIGN_COPY, lambda p: Path(p).write_text(spec.text, encoding="utf-8"))
+        write_text(run_dir / CAMPAIGN_COPY, spec.text)
 
     stop = _StopRequest()
     stop.install()

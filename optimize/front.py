@@ -666,12 +666,11 @@ def write_outputs(study, spec, run_dir, *, storage_url: str | None = None, quiet
 
     Every file is written under a temporary name and renamed into place.
     """
-    from optimize.campaign import write_atomic
+    from optimize.io import write_netcdf
 
     run_dir = Path(run_dir)
     front_ds, trials_ds = build_datasets(study, spec, storage_url=storage_url)
-    paths = [write_atomic(run_dir / "front.nc", lambda p: front_ds.to_netcdf(p, engine="netcdf4")),
-             write_atomic(run_dir / "trials.nc", lambda p: trials_ds.to_netcdf(p, engine="netcdf4"))]
+    paths = [write_netcdf(front_ds, run_dir / "front.nc"), write_netcdf(trials_ds, run_dir / "trials.nc")]
     try:
         from optimize.plots import plot_campaign
     except ImportError:
@@ -715,7 +714,8 @@ def rebuild_front(run_dir, storage: str | None = None, quiet: bool = False) -> i
 
     import optuna
 
-    from optimize.campaign import CAMPAIGN_COPY, STORAGE_ENV, open_storage, write_atomic
+    from optimize.campaign import CAMPAIGN_COPY, STORAGE_ENV, open_storage
+    from optimize.io import write_text
     from optimize.spec import load
 
     run_dir = Path(run_dir)
@@ -736,7 +736,7 @@ def rebuild_front(run_dir, storage: str | None = None, quiet: bool = False) -> i
                          "check --storage, or the [campaign] name in campaign.toml of the run directory") from None
     text = study.user_attrs.get("campaign_toml")
     if text is not None and (not copy.exists() or copy.read_text(encoding="utf-8") != text):
-        write_atomic(copy, lambda p: Path(p).write_text(text, encoding="utf-8"))
+        write_text(copy, text)
     spec = load(copy)
     write_outputs(study, spec, run_dir, storage_url=url, quiet=quiet)
     return 0

@@ -41,6 +41,13 @@ def write_netcdf(dataset, path: str | os.PathLike) -> Path:
     return Path(path)
 
 
+def write_text(path: str | os.PathLike, text: str) -> Path:
+    """Write a UTF-8 text file to ``path`` atomically."""
+    with atomic_path(path) as temporary:
+        temporary.write_text(text, encoding="utf-8")
+    return Path(path)
+
+
 def save_figure(figure, path: str | os.PathLike, **savefig_kwargs) -> Path:
     """Save a matplotlib figure to ``path`` atomically (format from the suffix)."""
     path = Path(path)

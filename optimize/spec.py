@@ -286,7 +286,7 @@ class SearchSpec:
 
     sampler: str = "nsga2"
     trials: int = 1000
-    batch: int = 32
+    batch: int = 64
     seed: int | None = None
     timeout_h: float | None = None
 
@@ -1390,7 +1390,7 @@ class _Reader:
         return SearchSpec(
             sampler=table.string("sampler", default.sampler, example='"nsga2"', choices=SAMPLERS),
             trials=table.integer("trials", default.trials, example="1000", at_least=1),
-            batch=table.integer("batch", default.batch, example="32", at_least=1),
+            batch=table.integer("batch", default.batch, example="64", at_least=1),
             seed=table.integer("seed", None, example="1", at_least=0) if table.has("seed") else None,
             timeout_h=table.number("timeout_h", None, example="8", above=0.0)
             if table.has("timeout_h")

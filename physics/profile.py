@@ -70,16 +70,16 @@ def interface_positions_nm(thickness_nm: np.ndarray) -> np.ndarray:
 
 
 def slices_per_layer(thickness_nm: np.ndarray, bias_V: np.ndarray, slice_nm: float) -> np.ndarray:
-    """Number of slices of each layer, common to the whole batch, shape (L,).
+    """Number of slices of each layer of each stack, shape (..., L).
 
-    Contacts and unbiased stacks keep one slice per layer; every other layer gets
-    enough slices that none is thicker than ``slice_nm`` in any stack of the batch.
+    Contacts and unbiased stacks keep one slice per layer; every other layer gets just
+    enough equal slices that none is thicker than ``slice_nm``. Each stack is sliced on
+    its own, so its profile does not depend on the other stacks of a batch.
     """
     thickness = np.asarray(thickness_nm, dtype=float)
-    count = np.ones(thickness.shape[-1], dtype=int)
+    count = np.ones(thickness.shape, dtype=int)
     if np.any(np.asarray(bias_V) != 0.0):
-        widest = np.max(thickness.reshape(-1, thickness.shape[-1]), axis=0)
-        count[1:-1] = np.maximum(1, np.ceil(widest[1:-1] / slice_nm - 1e-9).astype(int))
+        count[..., 1:-1] = np.maximum(1, np.ceil(thickness[..., 1:-1] / slice_nm - 1e-9).astype(int))
     return count
 
 
@@ -98,17 +98,23 @@ def biased_profile(device: Device, bias_V, *, slice_nm: float = DEFAULT_SLICE_nm
     Returns
     -------
     Profile
-        Arrays of shape ``(B, nV, L')`` with ``L' = sum(slices_per_layer)``.
+        Arrays of shape ``(B, nV, L')``, ``L'`` the total of the per-layer slot counts
+        (the most slices any stack of the batch needs in each layer).
     """
     bias = np.atleast_1d(np.asarray(bias_V, dtype=float))
     thickness = np.asarray(device.thickness_nm, dtype=float)
     edge = np.asarray(device.band_edge_eV, dtype=float)
     edge = edge - edge[:, :1]
-    count = slices_per_layer(thickness, bias, slice_nm)
-    layer_index = np.repeat(np.arange(device.n_layers), count)
+    count = slices_per_layer(thickness, bias, slice_nm)  # (B, L)
+    # The batch shares one slot count per layer; a stack that needs fewer slices fills
+    # its spare slots with zero-thickness slices, which change nothing.
+    slots = np.max(count, axis=0)
+    layer_index = np.repeat(np.arange(device.n_layers), slots)
+    slot_in_layer = np.arange(layer_index.size) - np.repeat(np.cumsum(slots) - slots, slots)
+    used = slot_in_layer[None, :] < count[:, layer_index]
 
     # Slice thickness and midpoint position (z = 0 at the emitter interface).
-    slice_thickness = thickness[:, layer_index] / count[layer_index]
+    slice_thickness = np.where(used, thickness[:, layer_index] / count[:, layer_index], 0.0)
     slice_thickness[:, 0] = slice_thickness[:, -1] = 0.0
     start = np.concatenate([np.zeros((device.n_stacks, 1)), np.cumsum(slice_thickness, axis=-1)[:, :-1]], axis=-1)
     midpoint = start + 0.5 * slice_thickness

@@ -46,6 +46,22 @@ def test_zero_bias_needs_no_slices():
     np.testing.assert_array_equal(slices_per_layer(device.thickness_nm, [0.0], DEFAULT_SLICE_nm), 1)
 
 
+def test_a_stack_is_sliced_the_same_whatever_its_batch_neighbours():
+    """Each stack is sliced on its own: the transmission under bias of a stack alone
+    equals its transmission inside a batch with a much thicker neighbour, to rounding."""
+    from physics.transfer import transmission
+
+    thin, thick = double_barrier(well_nm=3.0), double_barrier(well_nm=9.0)
+    both = Device(*(np.concatenate([getattr(thin, f), getattr(thick, f)]) for f in
+                    ("band_edge_eV", "mass", "thickness_nm", "emitter_doping_cm3", "collector_doping_cm3")), 300.0)
+    energy = np.linspace(0.01, 0.8, 200)
+    alone = biased_profile(thin, [0.4])
+    batched = biased_profile(both, [0.4])
+    t_alone = transmission(energy, alone.band_edge_eV, alone.mass, alone.thickness_nm)[0]
+    t_batched = transmission(energy, batched.band_edge_eV, batched.mass, batched.thickness_nm)[0]
+    np.testing.assert_allclose(t_batched, t_alone, rtol=1e-10)
+
+
 def test_batch_shares_slice_count_and_keeps_each_stack_exact():
     thin, thick = double_barrier(well_nm=3.0), double_barrier(well_nm=6.0)
     both = Device(*(np.concatenate([getattr(thin, f), getattr(thick, f)]) for f in
@@ -55,6 +71,7 @@ def test_batch_shares_slice_count_and_keeps_each_stack_exact():
     assert profile.band_edge_eV.shape[-1] == alone.band_edge_eV.shape[-1]
     np.testing.assert_allclose(profile.thickness_nm[1], alone.thickness_nm[0])
     np.testing.assert_allclose(profile.band_edge_eV[1], alone.band_edge_eV[0])
+    assert np.any(profile.thickness_nm[0, 0, 1:-1] == 0.0)  # the thin stack pads with empty slices
     np.testing.assert_allclose(profile.thickness_nm[0, 0].sum(), thin.total_thickness_nm[0])
 
 

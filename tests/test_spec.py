@@ -126,7 +126,7 @@ def test_stack_file_values_and_defaults():
     assert spec.bias == BiasSweep(0.0, 1.0, 51)
     assert spec.energy == EnergyGrid(0.0, 1.0, 2001)
     assert spec.model == ModelSpec(nonparabolic=False, slice_nm=None, max_levels=4)
-    assert spec.search == SearchSpec("nsga2", 1000, 32, None, None)
+    assert spec.search == SearchSpec("nsga2", 1000, 64, None, None)
     assert spec.tolerance is None and spec.objectives == () and spec.constraints == ()
     assert spec.user_materials == {} and spec.metric_requests == ()
     # AlAs is an indirect-gap material: one merged warning naming both barrier layers.
