@@ -175,9 +175,9 @@ def hypervolume(points: np.ndarray, reference) -> float:
     m = points.shape[1]
     if m == 1:
         return float(reference[0] - points[:, 0].min())
-    points = points[nondominated_mask(points)]
     if m == 2:
-        return _hypervolume_2d(points, reference)
+        return _hypervolume_2d(points, reference)  # the sweep ignores dominated points itself
+    points = points[nondominated_mask(points)]
     order = np.argsort(points[:, -1], kind="stable")
     points = points[order]
     levels = np.append(points[:, -1], reference[-1])

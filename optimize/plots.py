@@ -736,9 +736,13 @@ class _Objectives:
         specs = {}
         for ds in reversed(datasets):
             specs.update(_objective_specs(ds))
-        self.goals, self.targets, self.logs, self.as_metric = [], [], [], []
+        self.goals, self.targets, self.logs, self.as_metric, self.metric_labels = [], [], [], [], []
         for label in self.labels:
-            entry = specs.get(label, {})
+            # The metric behind an objective label such as "|resonance_energy_eV − 0.15|".
+            metric = _per_label(source, "objective_metric", label, "objective")
+            metric = _text(metric) if metric is not None and _text(metric) else label
+            self.metric_labels.append(metric)
+            entry = specs.get(metric, specs.get(label, {}))
             goal = _text(entry.get("goal", ""))
             for base in ("objective_goal", "objective_direction", "directions"):
                 value = _per_label(source, base, label, "objective")
@@ -752,9 +756,9 @@ class _Objectives:
             self.goals.append(goal.lower())
             self.targets.append(target)
             self.logs.append(log_flag)
-            self.as_metric.append(_metric_variable(front_ds, label, "design") is not None and (
+            self.as_metric.append(_metric_variable(front_ds, metric, "design") is not None and (
                 trials_ds is None or "trial" not in trials_ds.dims
-                or _metric_variable(trials_ds, label, "trial") is not None))
+                or _metric_variable(trials_ds, metric, "trial") is not None))
 
     def values(self, ds: xr.Dataset, dim: str) -> np.ndarray:
         """(rows, objectives) values as plotted; empty when the Dataset lacks them."""
@@ -762,7 +766,7 @@ class _Objectives:
         stored = _labels(ds, "objective")
         for index, label in enumerate(self.labels):
             if self.as_metric[index]:
-                columns.append(np.asarray(_metric_variable(ds, label, dim).values, float))
+                columns.append(np.asarray(_metric_variable(ds, self.metric_labels[index], dim).values, float))
             elif "objective_value" in ds.variables and dim in ds["objective_value"].dims and label in stored:
                 table = ds["objective_value"].transpose(dim, "objective")
                 columns.append(np.asarray(table.values, float)[:, stored.index(label)])
@@ -783,7 +787,7 @@ class _Objectives:
             else:
                 label = _metric_axis_label(label)
         else:
-            label = _metric_axis_label(label)
+            label = _metric_axis_label(self.metric_labels[index])
         if target is not None:
             return f"{label}\ntarget {target:.3g}"
         if goal.startswith("max"):
@@ -796,8 +800,11 @@ class _Objectives:
         """Where to draw the target: only on an axis that shows the metric itself."""
         return self.targets[index] if self.as_metric[index] else None
 
-    def prefer_log(self, index: int) -> bool:
-        return self.logs[index] and self.as_metric[index]
+    def prefer_log(self, index: int) -> bool | None:
+        """True: log axis; False: linear (a target reads best in linear units); None: by span."""
+        if self.logs[index] and self.as_metric[index]:
+            return True
+        return False if self.targets[index] is not None else None
 
     def ranking_key(self, index: int, values: np.ndarray) -> np.ndarray:
         """Smaller is better: distance to a target, negated for maximised objectives."""
@@ -834,8 +841,11 @@ def _trial_masks(trials_ds: xr.Dataset, values: np.ndarray) -> tuple[np.ndarray,
     return complete, feasible
 
 
-def _scale_axis(ax, axis: str, values: np.ndarray, prefer_log: bool) -> None:
+def _scale_axis(ax, axis: str, values: np.ndarray, prefer_log: bool | None) -> None:
+    """Log scale when asked (True), never when refused (False), else when values span > 3 decades."""
     finite = values[np.isfinite(values)]
+    if prefer_log is False:
+        return
     if finite.size and np.all(finite > 0) and (prefer_log or _positive_span_decades(finite) > 3):
         (ax.set_xscale if axis == "x" else ax.set_yscale)("log")
 
