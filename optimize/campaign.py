@@ -91,8 +91,9 @@ Workers, heartbeats, stale trials
 all of them stop at the budget and the main process writes the outputs. Workers
 started at the same moment on an empty storage tolerate each other creating the schema
 and the study. Each worker's sampler seed is derived from ``[search] seed``, the worker
-index (``TUNNELSMITH_WORKER_INDEX``) and the trials present when it starts, so workers and
-resumed runs do not repeat each other's designs; a single fresh run is reproducible.
+index (``TUNNELSMITH_WORKER_INDEX``) and the number of the first trial it creates (unique
+in the study, even for workers started together), so workers and resumed runs do not
+repeat each other's designs; a single fresh run is reproducible.
 
 Optuna beats hearts only inside ``study.optimize``; this loop keeps its own. A daemon
 thread records a heartbeat every :data:`HEARTBEAT_INTERVAL_S` seconds: per running
@@ -161,10 +162,26 @@ __all__ = [
 JOURNAL_NAME = "campaign.journal"
 CAMPAIGN_COPY = "campaign.toml"
 
+def _whole_seconds_from_env(name: str, default: int) -> int:
+    """A positive whole number of seconds from the environment (Optuna's RDB storage
+    takes whole seconds); an unreadable value is reported and the default kept."""
+    text = os.environ.get(name, "").strip()
+    if not text:
+        return default
+    try:
+        value = math.ceil(float(text))
+    except ValueError:
+        value = 0
+    if value < 1:
+        print(f"warning: {name}={text!r} is not a positive number of seconds; using {default}", file=sys.stderr)
+        return default
+    return value
+
+
 #: Seconds between heartbeats of a worker.
-HEARTBEAT_INTERVAL_S = int(os.environ.get("TUNNELSMITH_HEARTBEAT_S", "5"))
+HEARTBEAT_INTERVAL_S = _whole_seconds_from_env("TUNNELSMITH_HEARTBEAT_S", 5)
 #: Seconds without a heartbeat after which a running trial is failed and retried.
-GRACE_PERIOD_S = int(os.environ.get("TUNNELSMITH_GRACE_S", "30"))
+GRACE_PERIOD_S = _whole_seconds_from_env("TUNNELSMITH_GRACE_S", 30)
 #: How often one design is retried after its worker died.
 MAX_RETRIES = 2
 
@@ -907,8 +924,11 @@ class _Worker:
     stop: _StopRequest
     progress: _Progress
     heartbeat: _Heartbeat
+    #: Sampler seeded for a given first trial number (None: keep the study's sampler).
+    sampler_for: Any = None
 
     def __post_init__(self) -> None:
+        self._seeded = self.sampler_for is None
         self.tally = _Tally(self.spec)
         self.constraint_keys = objectives_module.constraint_keys(self.spec)
         self.distributions = space.distributions(self.spec)
@@ -944,6 +964,8 @@ class _Worker:
                                                      system_attrs={SYSTEM_WORKER: self.worker_id})
                 new_ids = [self.storage.create_new_trial(self.study._study_id, template_trial=template)
                            for _ in range(rest)]
+            if new_ids and not self._seeded:
+                self._reseed(self.storage.get_trial_number_from_id(new_ids[0]))
             for trial_id in new_ids:
                 self._reset_trial_cache()
                 trials.append(optuna.Trial(self.study, trial_id))
@@ -956,6 +978,16 @@ class _Worker:
         if isinstance(self.storage, CoalescingJournalStorage):
             self.storage.flush()  # parameters on file before the (long) evaluation: retryable
         return trials
+
+    def _reseed(self, first_number: int) -> None:
+        # Workers started together on an empty study see the same trials when they seed
+        # their samplers, and would propose the same designs in lockstep. The number of a
+        # worker's first trial is unique; for a lone or resumed worker it equals the
+        # trials present at its start, which seeded the sampler it already has.
+        self._seeded = True
+        self.study.sampler = self.sampler_for(first_number)
+        if hasattr(self.study.sampler, "start_batch"):
+            self.study.sampler.start_batch()
 
     def _drop_surplus(self, trials: list[optuna.Trial]) -> list[optuna.Trial]:
         """Fail the new trials ranked beyond the budget after a race with other workers."""
@@ -1075,10 +1107,9 @@ class _Worker:
 # --------------------------------------------------------------------------------------
 
 
-def _worker_seed(study: optuna.Study, worker_index: int) -> int:
+def _worker_seed(study: optuna.Study, worker_index: int, first_number: int) -> int:
     base = int(study.user_attrs.get("sampler_seed", 0))
-    present = len(study.get_trials(deepcopy=False))
-    return int(np.random.SeedSequence([base, worker_index, present]).generate_state(1)[0])
+    return int(np.random.SeedSequence([base, worker_index, first_number]).generate_state(1)[0])
 
 
 def _start_workers(count: int, spec, run_dir: Path, url: str | None, budget: int,
@@ -1189,9 +1220,13 @@ def _run(spec, run_dir: Path, url: str | None, budget: int, deadline: float | No
     main = worker_index == 0
     store = open_storage(run_dir, url, retry_stale=_retry_stale)
     study = open_study(store, spec, run_dir, url)
-    study.sampler = make_sampler(spec.search.sampler, seed=_worker_seed(study, worker_index),
-                                 search_space=space.distributions(spec), batch=spec.search.batch,
-                                 shared_seed=int(study.user_attrs.get("sampler_seed", 0)), spec_path=str(spec.path))
+
+    def sampler_for(first_number: int):
+        return make_sampler(spec.search.sampler, seed=_worker_seed(study, worker_index, first_number),
+                            search_space=space.distributions(spec), batch=spec.search.batch,
+                            shared_seed=int(study.user_attrs.get("sampler_seed", 0)), spec_path=str(spec.path))
+
+    study.sampler = sampler_for(len(study.get_trials(deepcopy=False)))
     if main:
         write_text(run_dir / CAMPAIGN_COPY, spec.text)
 
@@ -1200,7 +1235,8 @@ def _run(spec, run_dir: Path, url: str | None, budget: int, deadline: float | No
     worker_id = _new_worker_id()
     heartbeat = _Heartbeat(store, study._study_id, worker_id)
     progress = _Progress(budget, deadline, quiet, worker_index)
-    worker = _Worker(spec, study, store, budget, spec.search.batch, deadline, worker_id, stop, progress, heartbeat)
+    worker = _Worker(spec, study, store, budget, spec.search.batch, deadline, worker_id, stop, progress, heartbeat,
+                     sampler_for)
     children = []
     outcome = None
     try:
