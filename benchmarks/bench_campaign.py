@@ -29,15 +29,14 @@ from __future__ import annotations
 
 import os
 
-# One thread per process: the measurement is about this loop, and workers share cores.
-for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_name, "1")
+from harness import machine, single_thread
+
+single_thread()  # one thread per process: the measurement is about this loop, and workers share cores
 
 import argparse
 import contextlib
 import io
 import json
-import platform
 import shutil
 import subprocess
 import sys
@@ -166,11 +165,16 @@ def sampler_cost(sampler_name: str, history: int = 2000, probe: int = 64) -> dic
     dists = space.distributions(spec)
     rng = np.random.default_rng(0)
 
+    n_objectives = len(objectives.directions(spec))
+
     def values(params) -> list[float]:
-        # A cheap stand-in with the shape of the demo objectives (no physics here).
+        # A cheap stand-in with as many objectives as the demo (no physics here): a level
+        # error, a thickness, and conflicting barrier terms with some noise.
         well = params["well.thickness_ml"] * (1.0 if params["well.material"] == "InAs" else 0.95)
-        return [abs(1.0 / well - 0.07) + 0.01 * rng.random(),
-                sum(v for k, v in params.items() if k.endswith("thickness_ml")) * 0.3]
+        barriers = sum(v for k, v in params.items() if k.startswith("barrier") and k.endswith("thickness_ml"))
+        stand_in = [abs(1.0 / well - 0.07) + 0.01 * rng.random()]
+        stand_in += [(-1) ** k * barriers * 0.3 + 0.1 * rng.random() for k in range(n_objectives - 1)]
+        return stand_in
 
     sampler = campaign.make_sampler(sampler_name, seed=0, search_space=dists, batch=64)
     study = optuna.create_study(directions=objectives.directions(spec), sampler=sampler)
@@ -242,12 +246,6 @@ def postgres_workers(scratch: Path, trials: int) -> list[dict]:
     return rows
 
 
-def machine() -> dict:
-    return {"platform": platform.platform(), "processor": platform.processor() or platform.machine(),
-            "cpus": os.cpu_count(), "python": platform.python_version(), "numpy": np.__version__,
-            "optuna": optuna.__version__}
-
-
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--trials", type=int, default=10_000, help="zero-bias campaign budget")
@@ -270,7 +268,7 @@ def main(argv=None) -> int:
         workers += [dict(workers_throughput(iv_path, iv_trials, n), campaign="full I-V") for n in (1, 2)]
         workers += [] if args.skip_postgres else postgres_workers(Path(scratch), 192 if args.quick else 640)
 
-    print(f"\ncampaign throughput ({machine()['cpus']} cores, Optuna {optuna.__version__}, NSGA-II, journal file)")
+    print(f"\ncampaign throughput ({machine()['logical_cpus']} cores, Optuna {optuna.__version__}, NSGA-II, journal file)")
     print(f"{'campaign':<36}{'trials':>8}{'trials/s':>10}{'physics designs/s':>19}{'bookkeeping':>13}")
     for row in rows:
         print(f"{row['campaign']:<36}{row['finished_trials']:>8}{row['trials_per_s']:>10.1f}"

@@ -17,16 +17,12 @@ Prints a table and writes ``benchmarks/results/kernel.json``.
 Usage: ``python benchmarks/bench_kernel.py [--quick]``.
 """
 
-import os
+from harness import machine, single_thread
 
-# One core: set before numpy is imported so that BLAS and OpenMP pools stay single-threaded.
-for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMEXPR_NUM_THREADS",
-              "VECLIB_MAXIMUM_THREADS"):
-    os.environ[_name] = "1"
+single_thread()  # before numpy is imported
 
 import argparse  # noqa: E402
 import json  # noqa: E402
-import platform  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
 from pathlib import Path  # noqa: E402
@@ -42,25 +38,6 @@ from physics.transfer import transmission  # noqa: E402
 RESULTS = ROOT / "benchmarks" / "results" / "kernel.json"
 N_STACKS, N_ENERGIES, N_LAYERS = 64, 1000, 12
 TARGET_PER_S = 1e7
-
-
-def machine() -> dict:
-    cpu = "unknown"
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                cpu = line.split(":", 1)[1].strip()
-                break
-    except OSError:
-        pass
-    return {
-        "platform": platform.platform(),
-        "python": platform.python_version(),
-        "cpu": cpu,
-        "logical_cpus": os.cpu_count(),
-        "numpy": np.__version__,
-        "threads": "1 (OMP/OPENBLAS/MKL_NUM_THREADS=1)",
-    }
 
 
 def mixed_batch(rng) -> tuple:

@@ -12,16 +12,12 @@ Prints a table and writes ``benchmarks/results/tolerance.json``.
 Usage: ``python benchmarks/bench_tolerance.py [--quick]``.
 """
 
-import os
+from harness import machine, single_thread
 
-# One core: set before numpy is imported so that BLAS and OpenMP pools stay single-threaded.
-for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMEXPR_NUM_THREADS",
-              "VECLIB_MAXIMUM_THREADS"):
-    os.environ[_name] = "1"
+single_thread()  # before numpy is imported
 
 import argparse  # noqa: E402
 import json  # noqa: E402
-import platform  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
 import warnings  # noqa: E402
@@ -103,8 +99,7 @@ def main() -> int:
     RESULTS.write_text(json.dumps({
         "benchmark": "tolerance",
         "quick": args.quick,
-        "machine": {"python": platform.python_version(), "numpy": np.__version__, "processor": platform.processor()
-                    or platform.machine(), "threads": 1},
+        "machine": machine(),
         "zero_bias": zero_bias,
         "full_iv": iv,
         "target": {"samples": TARGET_SAMPLES, "seconds": TARGET_SECONDS, "projected_s": round(projected_s, 2),
