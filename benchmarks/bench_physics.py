@@ -3,17 +3,23 @@
 Measures
 --------
 1. Resonances: error of E_r and Gamma against fully converged poles, versus the
-   transmission evaluations spent per level (capping the Newton iterations).
+   transmission evaluations spent per level (capping the Newton iterations); and the
+   continuation in bias (``track_resonances``) against the full search at every bias:
+   levels found by one and not the other, and the cost of each.
 2. Current: error of the Tsu–Esaki integral against brute-force dense grids, versus
-   the energy nodes per bias.
+   the energy nodes per bias (the default marked); and on invented random double and
+   triple barriers against 1024 nodes.
 3. Full design evaluations per second: a 7-layer InGaAs/AlAs-like double barrier
    (invented example) with every I–V metric over a 51-point bias sweep, and with the
-   zero-bias metrics only.
+   zero-bias metrics only; where the I–V time goes; and the memory of one I–V
+   evaluation of a batch of 64 designs (tracemalloc peak of numpy's allocations, and the
+   peak resident set of a fresh process).
 
 Prints a table and writes ``benchmarks/results/physics.json``. Timings are CPU seconds
-of this process (the machine may be shared), numpy forced to one thread.
+of this process, the best of several repetitions (the machine may be shared), numpy
+forced to one thread.
 
-Run: ``.venv/bin/python benchmarks/bench_physics.py`` (about two minutes).
+Run: ``.venv/bin/python benchmarks/bench_physics.py`` (about three minutes).
 """
 
 import os
@@ -23,8 +29,10 @@ for _variable in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", 
 
 import json  # noqa: E402
 import platform  # noqa: E402
+import subprocess  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
+import tracemalloc  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
@@ -38,6 +46,7 @@ from physics.metrics import CATALOGUE, MetricRequest, evaluate  # noqa: E402
 from physics.profile import biased_profile  # noqa: E402
 
 RESULTS = Path(__file__).resolve().parent / "results" / "physics.json"
+NODE_COUNTS = (32, 48, 64, 80, 96, 128, 192, 256, 400)
 
 # The brute-force reference of the tests (Tsu–Esaki integral from scipy.constants on
 # dense uniform grids), so that test and benchmark measure against the same thing.
@@ -100,7 +109,7 @@ class Counter:
         setattr(self.module, self.name, self.original)
 
 
-def cpu_seconds(function, repeats=3):
+def cpu_seconds(function, repeats=5):
     """Best CPU time of ``repeats`` calls (after one warm-up call)."""
     function()
     best = np.inf
@@ -178,6 +187,63 @@ def bench_resonances():
     return rows
 
 
+def sweep_windows(device, bias):
+    """Level-search windows of :func:`physics.current.current_density`, shape (B, nV) each."""
+    profile = biased_profile(device, bias)
+    emitter, collector, source, _ = current_module.contact_levels(device, bias)
+    lo, hi = current_module.integration_window_eV(
+        bias[None, :], source, device.temperature_K, collector_edge_eV=np.real(profile.band_edge_eV[..., -1])
+    )
+    kT = current_module.KB_eV_K * device.temperature_K
+    top = np.minimum(hi, np.maximum(emitter, collector) + current_module.LEVEL_SEARCH_kT * kT)
+    return profile, lo, np.maximum(top, lo)
+
+
+def bench_tracking():
+    """Continuation in bias against the full search at every bias: same levels, cost."""
+    rows = []
+    for name, device, bias in (
+        ("example batch of 32, 0-1 V in 51 steps", rtd_batch(32), np.linspace(0.0, 1.0, 51)),
+        ("40 random double/triple barriers, -0.6-1 V in 41", random_stacks(40), np.linspace(-0.6, 1.0, 41)),
+    ):
+        profile, lo, hi = sweep_windows(device, bias)
+        found = {}
+        for method in ("find_resonances", "track_resonances"):
+            function = getattr(resonance_module, method)
+            extra = {"bias_V": bias} if method == "track_resonances" else {}
+
+            def run(function=function, extra=extra):
+                return function(**profile.arrays, window_eV=(lo, hi), **extra)
+
+            with Counter(resonance_module, "scattering") as kernel, Counter(resonance_module, "box_phase") as box:
+                found[method] = run()
+            seconds = cpu_seconds(run, repeats=3)
+            rows.append(
+                dict(
+                    case=name,
+                    method=method,
+                    ms_per_design=1e3 * seconds / device.n_stacks,
+                    kernel_evaluations=kernel.energies,
+                    box_phase_evaluations=box.energies,
+                    levels=int(np.isfinite(found[method].energy_eV).sum()),
+                )
+            )
+        searched, tracked = found["find_resonances"], found["track_resonances"]
+        only = {}
+        for label, mine, other in (("only_full_search", searched, tracked), ("only_tracking", tracked, searched)):
+            distance = np.abs(mine.energy_eV[..., :, None] - other.energy_eV[..., None, :])
+            matched = np.any(distance < 1e-9, axis=-1)
+            only[label] = int((np.isfinite(mine.energy_eV) & ~matched).sum())
+        both = np.isfinite(searched.energy_eV) & np.isfinite(tracked.energy_eV) & (
+            np.abs(searched.energy_eV - tracked.energy_eV) < 1e-9
+        )
+        rows[-1].update(
+            only,
+            max_energy_difference_eV=float(np.max(np.abs(searched.energy_eV - tracked.energy_eV)[both], initial=0.0)),
+        )
+    return rows
+
+
 # --- 2. current --------------------------------------------------------------------------
 
 
@@ -208,18 +274,42 @@ def bench_current():
             )
         else:
             reference = brute_force_current(device, bias)
-        for nodes in (32, 48, 64, 96, 128, 192, 256, 400):
+        for nodes in NODE_COUNTS:
             value = current_density(device, bias, nodes=nodes).current_density_A_cm2[0]
             error = np.abs(value / reference - 1.0)
             rows.append(
                 dict(
                     case=name,
+                    reference="brute-force dense grid",
+                    nodes=nodes,
+                    max_relative_error=float(error.max()),
+                    median_relative_error=float(np.median(error)),
+                )
+            )
+    # Invented random stacks over a whole sweep, against 1024 nodes (the brute-force
+    # grids above are too slow for hundreds of biases).
+    bias = np.linspace(0.02, 1.0, 25)
+    warm, cold = random_stacks(30, seed=11), random_stacks(30, seed=12)
+    cold = Device(cold.band_edge_eV, cold.mass, cold.thickness_nm, cold.emitter_doping_cm3, cold.collector_doping_cm3, 77.0)
+    for name, device in (("30 random stacks x 25 biases, 300 K", warm), ("30 random stacks x 25 biases, 77 K", cold)):
+        reference = current_density(device, bias, nodes=1024).current_density_A_cm2
+        for nodes in (64, 80, current_module.DEFAULT_NODES, 128):
+            error = np.abs(current_density(device, bias, nodes=nodes).current_density_A_cm2 / reference - 1.0)
+            rows.append(
+                dict(
+                    case=name,
+                    reference="1024 nodes",
                     nodes=nodes,
                     max_relative_error=float(error.max()),
                     median_relative_error=float(np.median(error)),
                 )
             )
     return rows
+
+
+def default_node_errors(rows):
+    """Largest error of each case at the default node count."""
+    return {r["case"]: r["max_relative_error"] for r in rows if r["nodes"] == current_module.DEFAULT_NODES}
 
 
 # --- 3. throughput -----------------------------------------------------------------------
@@ -237,7 +327,7 @@ def bench_throughput():
     iv_stacks = 32
     device = rtd_batch(iv_stacks)
     grid = np.linspace(0.0, 1.0, 201)
-    seconds = cpu_seconds(lambda: evaluate(device, iv_requests, energy_eV=grid, bias_V=bias), repeats=2)
+    seconds = cpu_seconds(lambda: evaluate(device, iv_requests, energy_eV=grid, bias_V=bias))
     slices = biased_profile(device, bias).band_edge_eV.shape[-1]
     rows.append(
         dict(
@@ -249,34 +339,7 @@ def bench_throughput():
             designs_per_second=iv_stacks / seconds,
         )
     )
-    # Where the I-V time goes (one instrumented call).
-    parts = {}
-    targets = [
-        (resonance_module, "closed_box_levels"),
-        (resonance_module, "_scan_peaks"),
-        (resonance_module, "refine_poles"),
-        (current_module, "adaptive_nodes"),
-        (current_module, "transport_transmission"),
-    ]
-    originals = {name: getattr(module, name) for module, name in targets}
-    for module, name in targets:
-
-        def timed(*args, _original=originals[name], _name=name, **kwargs):
-            start = time.process_time()
-            try:
-                return _original(*args, **kwargs)
-            finally:
-                parts[_name] = parts.get(_name, 0.0) + time.process_time() - start
-
-        setattr(module, name, timed)
-    try:
-        start = time.process_time()
-        current_density(device, bias)
-        parts["current_density (total)"] = time.process_time() - start
-    finally:
-        for module, name in targets:
-            setattr(module, name, originals[name])
-    parts = {name: seconds / iv_stacks for name, seconds in parts.items()}
+    parts = iv_time_parts(device, bias)
 
     zero_stacks = 300
     device = rtd_batch(zero_stacks)
@@ -294,6 +357,83 @@ def bench_throughput():
             )
         )
     return rows, parts
+
+
+def iv_time_parts(device, bias, repeats=3):
+    """Where the I-V time goes: CPU seconds per design of the main steps, best of
+    ``repeats`` instrumented calls of current_density."""
+    targets = [
+        (resonance_module, "closed_box_levels"),
+        (resonance_module, "_scan_peaks"),
+        (resonance_module, "refine_poles"),
+        (resonance_module, "pole_rates"),
+        (current_module, "adaptive_nodes"),
+        (current_module, "transport_transmission"),
+    ]
+    originals = {name: getattr(module, name) for module, name in targets}
+    best = {}
+    for _ in range(repeats):
+        parts = {}
+        for module, name in targets:
+
+            def timed(*args, _original=originals[name], _name=name, **kwargs):
+                start = time.process_time()
+                try:
+                    return _original(*args, **kwargs)
+                finally:
+                    parts[_name] = parts.get(_name, 0.0) + time.process_time() - start
+
+            setattr(module, name, timed)
+        try:
+            start = time.process_time()
+            current_density(device, bias)
+            parts["current_density (total)"] = time.process_time() - start
+        finally:
+            for module, name in targets:
+                setattr(module, name, originals[name])
+        for name, seconds in parts.items():
+            best[name] = min(best.get(name, np.inf), seconds / device.n_stacks)
+    return best
+
+
+# A fresh interpreter measures one full I-V evaluation of a batch: tracemalloc's peak
+# (numpy reports its buffers to it) and the peak resident set against the one before.
+_MEMORY_PROBE = """
+import os, sys, tracemalloc
+sys.path.insert(0, {benchmarks!r})
+import numpy as np
+from bench_physics import rtd_batch
+from physics.metrics import CATALOGUE, MetricRequest, evaluate
+
+def status(key):
+    for line in open("/proc/self/status"):
+        if line.startswith(key):
+            return int(line.split()[1]) / 1024.0
+requests = [MetricRequest(n) for n, i in CATALOGUE.items() if not i.takes_bias]
+requests.append(MetricRequest("leakage_A_cm2", 0.05))
+device = rtd_batch({stacks})
+before = status("VmRSS:")
+tracemalloc.start()
+evaluate(device, requests, energy_eV=np.linspace(0.0, 1.0, 201), bias_V=np.linspace(0.0, 1.0, 51))
+peak = tracemalloc.get_traced_memory()[1] / 2**20
+tracemalloc.stop()
+print(peak, before, status("VmHWM:"))
+"""
+
+
+def iv_memory(stacks=64):
+    """Memory of one I-V evaluation (all metrics, 51 biases) of ``stacks`` designs, MiB."""
+    code = _MEMORY_PROBE.format(benchmarks=str(Path(__file__).resolve().parent), stacks=stacks)
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    output = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True)
+    peak, before, high_water = (float(v) for v in output.stdout.split())
+    return dict(
+        stacks=stacks,
+        tracemalloc_peak_MiB=peak,
+        rss_before_MiB=before,
+        peak_rss_MiB=high_water,
+        peak_rss_increase_MiB=high_water - before,
+    )
 
 
 def machine():
@@ -330,26 +470,57 @@ def main():
             f"{r['box_phase_evaluations_per_level']:8.1f} {r['max_energy_error_eV']:12.2e} "
             f"{r['max_width_relative_error']:10.2e} {r['missed_levels']:6d}"
         )
+    tracking_rows = bench_tracking()
+    print("\nContinuation in bias against the full search at every bias (CPU ms per design, best of 3)")
+    print(f"{'case':50s} {'method':16s} {'ms/design':>9s} {'kernel E':>9s} {'box E':>8s} {'levels':>6s}")
+    for r in tracking_rows:
+        print(
+            f"{r['case']:50s} {r['method']:16s} {r['ms_per_design']:9.2f} {r['kernel_evaluations']:9d} "
+            f"{r['box_phase_evaluations']:8d} {r['levels']:6d}"
+        )
+        if "only_full_search" in r:
+            print(
+                f"{'':50s} levels only in the full search {r['only_full_search']}, only in the tracking "
+                f"{r['only_tracking']}; common ones agree to {r['max_energy_difference_eV']:.1e} eV"
+            )
     current_rows = bench_current()
-    print("\nCurrent: relative error against brute-force dense grids vs. nodes per bias")
+    print("\nCurrent: relative error against brute-force dense grids (or 1024 nodes) vs. nodes per bias")
     print(f"{'case':40s} {'nodes':>5s} {'max err':>10s} {'median err':>10s}")
     for r in current_rows:
-        print(f"{r['case']:40s} {r['nodes']:5d} {r['max_relative_error']:10.2e} {r['median_relative_error']:10.2e}")
+        mark = "  <- default" if r["nodes"] == current_module.DEFAULT_NODES else ""
+        print(
+            f"{r['case']:40s} {r['nodes']:5d} {r['max_relative_error']:10.2e} {r['median_relative_error']:10.2e}{mark}"
+        )
+    default_errors = default_node_errors(current_rows)
+    print(
+        f"Error at the default {current_module.DEFAULT_NODES} nodes: "
+        + ", ".join(f"{case} {error:.1e}" for case, error in default_errors.items())
+    )
     throughput_rows, parts = bench_throughput()
-    print("\nThroughput (CPU time, one thread)")
+    print("\nThroughput (CPU time, one thread, best of 5 repetitions)")
     for r in throughput_rows:
         print(
             f"{r['what']:55s} batch {r['stacks']:4d}  energy grid {r['energy_points']:5d}  "
             f"{r['designs_per_second']:9.1f} designs/s"
         )
-    print("I-V time per design (s): " + ", ".join(f"{k} {v:.4f}" for k, v in parts.items()))
+    print("I-V time per design (ms, best of 3): " + ", ".join(f"{k} {1e3 * v:.2f}" for k, v in parts.items()))
+    memory = iv_memory()
+    print(
+        f"Memory of one I-V evaluation of {memory['stacks']} designs: tracemalloc peak "
+        f"{memory['tracemalloc_peak_MiB']:.0f} MiB, peak RSS {memory['peak_rss_MiB']:.0f} MiB "
+        f"(+{memory['peak_rss_increase_MiB']:.0f} MiB over the {memory['rss_before_MiB']:.0f} MiB before)"
+    )
     result = dict(
         date=time.strftime("%Y-%m-%d %H:%M:%S %Z"),
         machine=machine(),
         resonances=resonance_rows,
         current=current_rows,
+        tracking=tracking_rows,
+        default_nodes=current_module.DEFAULT_NODES,
+        default_node_max_errors=default_errors,
         throughput=throughput_rows,
         iv_time_per_design_s=parts,
+        iv_memory=memory,
         targets=dict(
             resonance="E_r within 1e-6 eV and Gamma within 1e-3 relative with <= 100 evaluations per level",
             current="1e-3 relative with <= 400 nodes per bias",

@@ -49,11 +49,17 @@ pole ``E_r - i Gamma/2`` a Lorentzian of width ``Gamma`` (``f/rho`` is then flat
 the line: the substitution ``E = E_r + (Gamma/2) tan(theta)``) plus a density
 ``1/sqrt((E - E_r)^2 + (Gamma/2)^2)``, logarithmic in the tails, which resolves the
 crossover of the line into the background whatever ``Gamma`` (a Lorentzian alone
-starves it). ``F^{-1}`` is found by a tabulate-and-polish inversion. Every bias gets the
-same number of nodes, so a whole bias sweep of a whole batch of stacks goes through the
-kernel in one call. Against brute-force dense grids, :data:`DEFAULT_NODES` gives ~1e-6
-relative error on ordinary double and triple barriers and ~3e-4 on a level of width
-below 1 neV (``benchmarks/bench_physics.py``).
+starves it). ``F^{-1}`` is found in the variable ``s = sqrt(E - E_lo)``, in which ``F`` is
+smooth also at the lower edge: ``F`` and ``dF/ds`` are tabulated at quantiles of every
+part, the cubic Hermite interpolant of ``F`` is inverted in each cell, and two Newton
+steps on ``F`` polish the result; each node is the last point where ``F`` was evaluated,
+so its weight ``dE/du`` is exact for it. Every bias gets the same number of nodes, so a
+whole bias sweep of a whole batch of stacks goes through the kernel in one call; at zero
+bias the supply vanishes identically and the kernel is not called. Against brute-force
+dense grids, :data:`DEFAULT_NODES` gives ~2e-6 relative error on an ordinary double
+barrier (300 K and 77 K), ~1.5e-4 on a triple barrier and ~1e-4 on a level narrower than
+1 neV; on invented random double and triple barriers the largest error against 1024
+nodes is ~1e-3 (``benchmarks/bench_physics.py``).
 """
 
 from __future__ import annotations
@@ -67,11 +73,12 @@ from scipy.special import expit, logit
 from physics.constants import KB_eV_K, NC_300K_cm3, RICHARDSON_A_cm2_K2
 from physics.device import Device
 from physics.profile import DEFAULT_SLICE_nm, biased_profile
-from physics.resonance import Resonances, find_resonances
-from physics.transfer import scattering
+from physics.resonance import Resonances, track_resonances
+from physics.transfer import scattering, transmission
 
-#: Default number of energy nodes per bias (see benchmarks/bench_physics.py).
-DEFAULT_NODES = 128
+#: Default number of energy nodes per bias (accuracy per node count in
+#: benchmarks/bench_physics.py).
+DEFAULT_NODES = 96
 
 #: The integration window ends this many k_B T above the higher Fermi level.
 SUPPLY_TAIL_kT = 40.0
@@ -82,17 +89,23 @@ LEVEL_SEARCH_kT = 20.0
 
 # Share of the nodes of each part of the node density (module docstring); the poles
 # share POLES between them, at most POLE_MAX each, the rest goes to the uniform part.
+# POLE_MAX and LINE_SHARE were tuned at 96 nodes (benchmarks/bench_physics.py): a larger
+# share of the asinh density keeps f/rho smooth where a narrow line meets its tails.
 _WEIGHT_EDGE = 0.1
-_WEIGHT_UNIFORM = 0.25
 _WEIGHT_FERMI = 0.05
 _WEIGHT_POLES = 0.55
-_WEIGHT_POLE_MAX = 0.25
+_WEIGHT_POLE_MAX = 0.35
 # Part of a pole's share that goes to the Lorentzian (the rest to the asinh density).
-_LINE_SHARE = 0.4
+_LINE_SHARE = 0.3
 
-# Inversion of the node CDF: table quantiles per part, then Newton polishing steps.
-_TABLE_PER_PART = 24
-_NEWTON_POLISH_STEPS = 4
+# Inversion of the node CDF: table quantiles per part (more for the asinh parts, which
+# span many decades of E - E_r), Newton steps on each cell's cubic, Newton steps on F.
+# With fewer table points or steps the nodes' residual in u reaches 1e-8..1e-5, which
+# shows in the current at 1e-7..1e-4 and spoils the exact integral of a Lorentzian.
+_TABLE_PER_PART = 16
+_ASINH_PER_PART = 48
+_CELL_NEWTON_STEPS = 2
+_NEWTON_POLISH_STEPS = 2
 
 # Gauss–Legendre order of each of the three pieces of the Fermi–Dirac integral (in
 # t = sqrt(x)), and their reach below and above the Fermi level in units of k_B T.
@@ -235,7 +248,7 @@ def transport_transmission(energy_eV, band_edge_eV, mass, thickness_nm, *, gap_e
     """
     edge = np.asarray(band_edge_eV)
     if not np.iscomplexobj(edge) or not np.any(edge.imag != 0.0):
-        return scattering(energy_eV, edge.real, mass, thickness_nm, gap_eV=gap_eV).transmission
+        return transmission(energy_eV, edge.real, mass, thickness_nm, gap_eV=gap_eV)
     layers = [edge, np.asarray(mass, float), np.asarray(thickness_nm, float)]
     if gap_eV is not None:
         layers.append(np.asarray(gap_eV, float))
@@ -257,29 +270,33 @@ def transport_transmission(energy_eV, band_edge_eV, mass, thickness_nm, *, gap_e
 
 @dataclass(frozen=True)
 class _NodeDensity:
-    """Mixture node density on [lo, hi] (module docstring).
+    """Mixture node density on [lo, hi] (module docstring), in the variable ``s = sqrt(E - lo)``.
 
-    Window arrays have shape S + (1,); the Fermi bumps S + (nb,) and the poles S + (K,).
-    Each part is normalised to unit mass inside the window, then weighted.
+    ``F`` is smooth in ``s`` also at the lower edge, where the edge part makes it grow
+    like ``sqrt(E - lo)``; there ``dF/ds`` is finite and positive. Window arrays have
+    shape S + (1,); the Fermi bumps S + (nb,) and the poles S + (K,). Each part is
+    normalised to unit mass inside the window and weighted; ``*_coefficient`` is weight
+    over mass, and ``constant`` collects the parts' values at ``lo`` so that ``F(lo) = 0``.
     """
 
     lo: np.ndarray
     hi: np.ndarray
-    w_edge: np.ndarray
-    w_uniform: np.ndarray
+    edge_slope: np.ndarray
+    uniform_rate: np.ndarray
+    constant: np.ndarray
+    kT: np.ndarray
     bump_center: np.ndarray
-    bump_scale: np.ndarray
+    bump_coefficient: np.ndarray
     bump_offset: np.ndarray
     bump_mass: np.ndarray
-    w_bump: np.ndarray
     pole_center: np.ndarray
     pole_half_width: np.ndarray
-    pole_offset: np.ndarray
-    pole_mass: np.ndarray
-    w_pole: np.ndarray
+    asinh_coefficient: np.ndarray
+    asinh_offset: np.ndarray
+    asinh_mass: np.ndarray
+    line_coefficient: np.ndarray
     line_offset: np.ndarray
     line_mass: np.ndarray
-    w_line: np.ndarray
 
     @classmethod
     def build(cls, lo, hi, fermi_eV, kT, pole_eV, width_eV) -> _NodeDensity:
@@ -296,8 +313,8 @@ class _NodeDensity:
         center = np.where(pole_inside, pole_eV, lo)
         # A floor far below any physical width keeps asinh finite for Gamma = 0.
         half_width = np.where(pole_inside, np.maximum(0.5 * np.nan_to_num(width_eV), 1e-15), span)
-        pole_offset = np.arcsinh((lo - center) / half_width)
-        pole_mass = np.arcsinh((hi - center) / half_width) - pole_offset
+        asinh_offset = np.arcsinh((lo - center) / half_width)
+        asinh_mass = np.arcsinh((hi - center) / half_width) - asinh_offset
         line_offset = np.arctan((lo - center) / half_width)
         line_mass = np.arctan((hi - center) / half_width) - line_offset
         count = np.sum(pole_inside, axis=-1, keepdims=True)
@@ -305,106 +322,186 @@ class _NodeDensity:
         w_line = _LINE_SHARE * share
         w_pole = share - w_line
 
+        bump_coefficient = w_bump / bump_mass
+        asinh_coefficient = w_pole / asinh_mass
+        line_coefficient = w_line / line_mass
         rest = 1.0 - _WEIGHT_EDGE - np.sum(w_bump, axis=-1, keepdims=True) - np.sum(share, axis=-1, keepdims=True)
+        constant = -(
+            np.sum(bump_coefficient * bump_offset, axis=-1, keepdims=True)
+            + np.sum(asinh_coefficient * asinh_offset + line_coefficient * line_offset, axis=-1, keepdims=True)
+        )
         return cls(
             lo=lo,
             hi=hi,
-            w_edge=np.full_like(lo, _WEIGHT_EDGE),
-            w_uniform=rest,
+            edge_slope=_WEIGHT_EDGE / np.sqrt(span),
+            uniform_rate=rest / span,
+            constant=constant,
+            kT=kT,
             bump_center=bump_center,
-            bump_scale=kT,
+            bump_coefficient=bump_coefficient,
             bump_offset=bump_offset,
             bump_mass=bump_mass,
-            w_bump=w_bump,
             pole_center=center,
             pole_half_width=half_width,
-            pole_offset=pole_offset,
-            pole_mass=pole_mass,
-            w_pole=w_pole,
+            asinh_coefficient=asinh_coefficient,
+            asinh_offset=asinh_offset,
+            asinh_mass=asinh_mass,
+            line_coefficient=line_coefficient,
             line_offset=line_offset,
             line_mass=line_mass,
-            w_line=w_line,
         )
 
-    def cdf_and_density(self, energy: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """``F(E)`` and ``rho(E)`` for energies of shape S + (N,)."""
-        span = self.hi - self.lo
-        above = np.clip(energy - self.lo, 0.0, span)
-        cdf = self.w_edge * np.sqrt(above / span) + self.w_uniform * above / span
-        with np.errstate(divide="ignore"):
-            density = self.w_edge * 0.5 / np.sqrt(above * span) + self.w_uniform / span
+    def cdf_and_slope(self, root: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``F`` and ``dF/ds`` at ``s = root`` (shape S + (N,)), i.e. at ``E = lo + s^2``.
+
+        ``dF/ds = 2 s rho(E)``, with the edge part's ``2 s rho`` the constant
+        ``edge_slope``. The pole parts share one square root: with
+        ``r = (E - E_r)/(Gamma/2)``, ``asinh r = sign(r) ln(|r| + sqrt(1 + r^2))``.
+        """
+        # In-place arithmetic on a few buffers: the arrays are large, and each fresh
+        # temporary costs a pass over memory (and page faults).
+        energy = np.multiply(root, root)
+        cdf = np.multiply(energy, self.uniform_rate)
+        energy += self.lo
+        work = np.multiply(root, self.edge_slope)
+        cdf += work
+        cdf += self.constant
+        rest = np.empty_like(cdf)  # 2 s rho without the edge part, divided by 2 s
+        rest[...] = self.uniform_rate
+        extra = np.empty_like(cdf)
         for k in range(self.bump_center.shape[-1]):
-            logistic = expit((energy - self.bump_center[..., k, None]) / self.bump_scale)
-            weight = self.w_bump[..., k, None] / self.bump_mass[..., k, None]
-            cdf = cdf + weight * (logistic - self.bump_offset[..., k, None])
-            density = density + weight * logistic * (1.0 - logistic) / self.bump_scale
+            logistic = np.subtract(energy, self.bump_center[..., k, None], out=work)
+            logistic /= self.kT
+            expit(logistic, out=logistic)
+            cdf += np.multiply(logistic, self.bump_coefficient[..., k, None], out=extra)
+            np.subtract(1.0, logistic, out=extra)
+            extra *= logistic
+            extra *= self.bump_coefficient[..., k, None] / self.kT
+            rest += extra
+        if self.pole_center.shape[-1]:
+            root_q, asinh = np.empty_like(cdf), np.empty_like(cdf)
         for k in range(self.pole_center.shape[-1]):
-            offset = energy - self.pole_center[..., k, None]
             half_width = self.pole_half_width[..., k, None]
-            weight = self.w_pole[..., k, None] / self.pole_mass[..., k, None]
-            cdf = cdf + weight * (np.arcsinh(offset / half_width) - self.pole_offset[..., k, None])
-            density = density + weight / np.hypot(offset, half_width)
-            weight = self.w_line[..., k, None] / self.line_mass[..., k, None]
-            cdf = cdf + weight * (np.arctan(offset / half_width) - self.line_offset[..., k, None])
-            density = density + weight * half_width / (offset * offset + half_width * half_width)
-        return cdf, density
+            r = np.subtract(energy, self.pole_center[..., k, None], out=work)
+            r /= half_width
+            q = np.multiply(r, r, out=extra)
+            q += 1.0
+            np.sqrt(q, out=root_q)
+            np.abs(r, out=asinh)
+            asinh += root_q
+            np.log(asinh, out=asinh)
+            np.copysign(asinh, r, out=asinh)
+            asinh *= self.asinh_coefficient[..., k, None]
+            cdf += asinh
+            line = np.arctan(r, out=r)
+            line *= self.line_coefficient[..., k, None]
+            cdf += line
+            rest += np.divide(self.asinh_coefficient[..., k, None] / half_width, root_q, out=root_q)
+            rest += np.divide(self.line_coefficient[..., k, None] / half_width, q, out=q)
+        rest *= root
+        rest *= 2.0
+        rest += self.edge_slope
+        return cdf, rest
 
     def quantile_table(self, per_part: int) -> np.ndarray:
         """Sorted energies of shape S + (T,): the window ends and ``per_part`` quantiles of
         every part, so every cell between neighbours holds at most 1/per_part of ``F``."""
         v = (np.arange(per_part) + 0.5) / per_part
+        v_asinh = (np.arange(_ASINH_PER_PART) + 0.5) / _ASINH_PER_PART
         span = self.hi - self.lo
         parts = [self.lo, self.hi, self.lo + span * v * v, self.lo + span * v]
         for k in range(self.bump_center.shape[-1]):
             level = self.bump_offset[..., k, None] + v * self.bump_mass[..., k, None]
-            parts.append(self.bump_center[..., k, None] + self.bump_scale * logit(level))
+            parts.append(self.bump_center[..., k, None] + self.kT * logit(level))
         for k in range(self.pole_center.shape[-1]):
-            angle = self.pole_offset[..., k, None] + v * self.pole_mass[..., k, None]
-            parts.append(self.pole_center[..., k, None] + self.pole_half_width[..., k, None] * np.sinh(angle))
+            center, half_width = self.pole_center[..., k, None], self.pole_half_width[..., k, None]
+            angle = self.asinh_offset[..., k, None] + v_asinh * self.asinh_mass[..., k, None]
+            parts.append(center + half_width * np.sinh(angle))
             angle = self.line_offset[..., k, None] + v * self.line_mass[..., k, None]
-            parts.append(self.pole_center[..., k, None] + self.pole_half_width[..., k, None] * np.tan(angle))
+            parts.append(center + half_width * np.tan(angle))
         table = np.concatenate([np.broadcast_to(p, self.lo.shape[:-1] + p.shape[-1:]) for p in parts], axis=-1)
         return np.sort(np.clip(table, self.lo, self.hi), axis=-1)
 
     def inverse(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """``E = F^{-1}(u)`` and ``rho(E)`` for sorted ``u`` in (0, 1), shape S + (N,).
+        """``E = F^{-1}(u)`` and ``dE/du`` for sorted ``u`` in (0, 1), shape S + (N,).
 
-        ``F`` is tabulated on :meth:`quantile_table`; each ``u`` is bracketed in the
-        table (one batched ``searchsorted``: rows are offset by 2 so that the flattened
-        table stays sorted), interpolated linearly, and polished by Newton steps in
-        ``sqrt(E - lo)`` kept inside the bracket (bisection where a step would leave it).
+        ``F`` and ``dF/ds`` are tabulated on :meth:`quantile_table`; each ``u`` is
+        bracketed in the table, the cubic Hermite interpolant of ``F`` through the
+        cell's ends and slopes (textbook piecewise-cubic interpolation, e.g. de Boor, A
+        Practical Guide to Splines, ch. IV) is inverted, and Newton steps on ``F`` kept
+        inside the cell polish the result. The node is the last point where ``F`` was
+        evaluated, so its ``dE/du = 2 s / (dF/ds)`` is exact for it.
         """
-        table = self.quantile_table(_TABLE_PER_PART)
-        table_cdf = np.maximum.accumulate(self.cdf_and_density(table)[0], axis=-1)
+        table = np.sqrt(self.quantile_table(_TABLE_PER_PART) - self.lo)
+        table_cdf, table_slope = self.cdf_and_slope(table)
+        table_cdf = np.maximum.accumulate(table_cdf, axis=-1)
+        # Bracket each u in its table row with one searchsorted over the flattened table:
+        # rows are offset by 2 (F is in [0, 1]), so the flattened table stays sorted.
         n_table = table.shape[-1]
-        rows = table.reshape(-1, n_table)
-        offset = 2.0 * np.arange(rows.shape[0])[:, None]
-        target = np.broadcast_to(u, rows.shape[:1] + u.shape[-1:])
-        cell = np.searchsorted((table_cdf.reshape(rows.shape) + offset).ravel(), (target + offset).ravel(), "right")
-        cell = np.clip(cell.reshape(target.shape) - n_table * np.arange(rows.shape[0])[:, None], 1, n_table - 1)
-        shape = table.shape[:-1] + u.shape[-1:]
-        cell = cell.reshape(shape)
-        lower, upper = np.take_along_axis(table, cell - 1, axis=-1), np.take_along_axis(table, cell, axis=-1)
-        cdf_lower = np.take_along_axis(table_cdf, cell - 1, axis=-1)
-        cdf_upper = np.take_along_axis(table_cdf, cell, axis=-1)
-        target = target.reshape(shape)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            fraction = np.clip((target - cdf_lower) / (cdf_upper - cdf_lower), 0.0, 1.0)
-        energy = lower + np.nan_to_num(fraction) * (upper - lower)
-        # Newton in s = sqrt(E - lo), in which F is smooth also at the lower edge, where
-        # the edge part makes F grow like sqrt(E - lo).
-        root, root_lower, root_upper = (np.sqrt(np.maximum(e - self.lo, 0.0)) for e in (energy, lower, upper))
-        for _ in range(_NEWTON_POLISH_STEPS):
-            cdf, density = self.cdf_and_density(self.lo + root * root)
-            low = cdf < target
-            root_lower = np.where(low, root, root_lower)
-            root_upper = np.where(low, root_upper, root)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                newton = root - (cdf - target) / (2.0 * root * density)
-            inside = (newton >= root_lower) & (newton <= root_upper)
-            root = np.where(inside, newton, 0.5 * (root_lower + root_upper))
-        energy = self.lo + root * root
-        return energy, self.cdf_and_density(energy)[1]
+        n_rows = table_cdf.size // n_table
+        row_offset = 2.0 * np.arange(n_rows)[:, None]
+        target = np.broadcast_to(u, table.shape[:-1] + u.shape[-1:])
+        flat_target = (target.reshape(n_rows, -1) + row_offset).ravel()
+        upper_index = np.searchsorted((table_cdf.reshape(n_rows, -1) + row_offset).ravel(), flat_target, "right")
+        first = n_table * np.arange(n_rows)[:, None]
+        upper_index = np.clip(upper_index.reshape(n_rows, -1) - first, 1, n_table - 1) + first
+        upper_index = upper_index.reshape(target.shape)
+        lower_index = upper_index - 1
+        lower, upper = table.take(lower_index), table.take(upper_index)
+        root = _invert_hermite_cell(
+            target,
+            lower,
+            upper,
+            table_cdf.take(lower_index),
+            table_cdf.take(upper_index),
+            table_slope.take(lower_index),
+            table_slope.take(upper_index),
+        )
+        for step in range(_NEWTON_POLISH_STEPS + 1):
+            cdf, slope = self.cdf_and_slope(root)
+            if step == _NEWTON_POLISH_STEPS:
+                break
+            root, lower, upper = _bracketed_newton(root, cdf - target, slope, lower, upper)
+        return self.lo + root * root, 2.0 * root / slope
+
+
+
+def _invert_hermite_cell(target, lower, upper, cdf_lower, cdf_upper, slope_lower, slope_upper):
+    """``s`` in ``[lower, upper]`` where the cubic Hermite interpolant of ``F(s)`` equals ``target``.
+
+    The interpolant through the cell's ends and slopes (exact for cubic ``F``, error
+    O(h^4) for smooth ``F``) is inverted by Newton steps on the polynomial, kept inside
+    the cell by bisection; polynomial steps cost a few multiplications, far less than an
+    evaluation of ``F``.
+    """
+    width = upper - lower
+    rise = cdf_upper - cdf_lower
+    # F - target = c0 + m0 t + c2 t^2 + c3 t^3 for t in [0, 1]: the Hermite form of the
+    # cubic with values and slopes (per unit t) at both ends, expanded in powers of t.
+    m0, m1 = slope_lower * width, slope_upper * width
+    c0 = cdf_lower - target
+    c2 = 3.0 * rise - 2.0 * m0 - m1
+    c3 = m0 + m1 - 2.0 * rise
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.clip(np.nan_to_num(-c0 / rise), 0.0, 1.0)
+    left, right = np.zeros_like(t), np.ones_like(t)
+    for _ in range(_CELL_NEWTON_STEPS):
+        value = ((c3 * t + c2) * t + m0) * t + c0
+        derivative = (3.0 * c3 * t + 2.0 * c2) * t + m0
+        t, left, right = _bracketed_newton(t, value, derivative, left, right)
+    return lower + t * width
+
+
+def _bracketed_newton(x, residual, slope, left, right):
+    """One Newton step towards the root of an increasing function, given its residual
+    and slope at ``x``: the bracket [left, right] shrinks to the root's side of ``x``,
+    and a step that would leave it is replaced by bisection."""
+    below = residual < 0.0
+    left = np.where(below, x, left)
+    right = np.where(below, right, x)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        newton = x - residual / slope
+    return np.where((newton >= left) & (newton <= right), newton, 0.5 * (left + right)), left, right
 
 
 def adaptive_nodes(lo_eV, hi_eV, temperature_K, fermi_eV, pole_eV, width_eV, n_nodes: int):
@@ -435,10 +532,8 @@ def adaptive_nodes(lo_eV, hi_eV, temperature_K, fermi_eV, pole_eV, width_eV, n_n
     width_eV = np.take_along_axis(width_eV, order, axis=-1)[..., :count]
     density = _NodeDensity.build(lo_eV, hi_eV, fermi_eV, kT, pole_eV, width_eV)
     u, w = _gauss_legendre_01(n_nodes)
-    energy, rho = density.inverse(u)
-    with np.errstate(divide="ignore"):
-        weight = np.where(np.isfinite(rho), w / rho, 0.0)
-    return energy, weight
+    energy, jacobian = density.inverse(u)
+    return energy, w * jacobian
 
 
 # --- current ----------------------------------------------------------------------------
@@ -553,18 +648,26 @@ def current_density(
     # Levels far above the Fermi levels carry no current (supply ~ exp(-20)); the uniform
     # nodes cover their tails, so the level search stops short of the integration window.
     level_top = np.minimum(hi, np.maximum(emitter, collector) + LEVEL_SEARCH_kT * KB_eV_K * device.temperature_K)
-    levels = find_resonances(**profile.arrays, window_eV=(lo, np.maximum(level_top, lo)), max_levels=max_levels)
+    levels = track_resonances(
+        **profile.arrays, bias_V=bias, window_eV=(lo, np.maximum(level_top, lo)), max_levels=max_levels
+    )
+    # At zero bias the supply vanishes identically (J = 0 exactly): no nodes there.
+    current = np.zeros(emitter.shape)
+    if np.all(bias == 0.0):
+        return IVCurve(bias_V=bias, current_density_A_cm2=current, resonances=levels)
+    biased = np.flatnonzero(bias != 0.0) if np.any(bias == 0.0) else slice(None)
     energy, weight = adaptive_nodes(
-        lo,
-        hi,
+        lo[:, biased],
+        hi[:, biased],
         device.temperature_K,
-        np.stack([emitter, collector], axis=-1),
-        levels.energy_eV,
-        levels.width_eV,
+        np.stack([emitter, collector], axis=-1)[:, biased],
+        levels.energy_eV[:, biased],
+        levels.width_eV[:, biased],
         nodes,
     )
-    transmission = transport_transmission(energy, **profile.arrays)
-    supply = supply_function_eV(energy, emitter[..., None], collector[..., None], device.temperature_K)
+    arrays = {key: None if value is None else value[:, biased] for key, value in profile.arrays.items()}
+    transmitted = transport_transmission(energy, **arrays)
+    supply = supply_function_eV(energy, emitter[:, biased, None], collector[:, biased, None], device.temperature_K)
     kT = KB_eV_K * device.temperature_K
-    current = prefactor * np.sum(weight * transmission * supply, axis=-1) / kT
+    current[:, biased] = prefactor[:, biased] * np.sum(weight * transmitted * supply, axis=-1) / kT
     return IVCurve(bias_V=bias, current_density_A_cm2=current, resonances=levels)

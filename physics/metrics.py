@@ -35,8 +35,8 @@ import numpy as np
 from physics.current import DEFAULT_NODES, current_density
 from physics.device import Device
 from physics.profile import biased_profile
-from physics.resonance import find_resonances, transmission_peaks
-from physics.transfer import scattering
+from physics.resonance import find_resonances, fold_contact_spacers, transmission_peaks
+from physics.transfer import log10_transmission, scattering
 
 
 @dataclass(frozen=True)
@@ -293,7 +293,11 @@ def evaluate(
     zero_arrays = {
         key: (None if value is None else value[:, 0]) for key, value in zero.arrays.items()
     }
-    result = scattering(energy, **zero_arrays)
+    # Spacers identical to a contact change no transmission: the grid runs without them.
+    zero_arrays = fold_contact_spacers(**zero_arrays)
+    # One kernel call gives log10 T (finite far below 1e-308, for the level starts and
+    # the contrast); T itself follows from it.
+    log10_t = log10_transmission(energy, **zero_arrays)
     values: dict[str, np.ndarray] = {}
     reasons: dict[str, np.ndarray] = {}
     computed: dict[str, tuple[np.ndarray, np.ndarray]] = {}
@@ -301,7 +305,7 @@ def evaluate(
     level_energy, level_width = no_levels, no_levels
 
     if names & _LEVEL_METRICS:
-        metrics, levels = _level_metrics(device, zero_arrays, energy, result.log10_transmission, max_levels)
+        metrics, levels = _level_metrics(device, zero_arrays, energy, log10_t, max_levels)
         computed.update(metrics)
         level_energy, level_width = levels.energy_eV[:, None], levels.width_eV[:, None]
 
@@ -330,7 +334,7 @@ def evaluate(
         values=values,
         reasons=reasons,
         energy_eV=energy,
-        transmission=result.transmission,
+        transmission=np.exp(np.log(10.0) * log10_t),
         resonance_energy_eV=level_energy,
         resonance_width_eV=level_width,
         bias_V=sweep if sweep.size else None,

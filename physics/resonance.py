@@ -28,6 +28,9 @@ Numerics
    (above-barrier) resonances whose box levels may be far from the pole.
    (c) Optional start points from the caller (e.g. peaks of a transmission already
    computed on a fine grid).
+   Inner layers identical to their contact (spacers) are folded into the contact first
+   (:meth:`_Stacks.absorb_contact_runs`): the walls then sit at the first layer that
+   differs, and the search runs on fewer layers.
 2. *Root finder.* Newton's method on ``f(E) = 1/t(E)``, which is analytic and close to
    linear near a pole, with the derivative from the central difference at ``E +- h``.
    Normalising ``f(E +- h)`` by ``exp((log t(E+h) + log t(E-h))/2)`` turns the Newton
@@ -40,6 +43,14 @@ Numerics
    leave the window, are dropped on the way.
 3. Poles reached from several start points are merged; poles inside the energy window
    are reported in ascending order of ``E_r``, NaN-padded to ``max_levels``.
+
+Along a bias sweep (:func:`track_resonances`) the full search runs at a few biases
+only; the others start Newton's method from the poles of their searched neighbours,
+carried across in bias by their rates ``dE_p/dV`` (:func:`pole_rates`): a natural-
+parameter continuation (Allgower & Georg, Introduction to Numerical Continuation
+Methods, SIAM 2003, ch. 2) whose predictions are accurate enough for two Newton steps,
+where a box level needs five or more. The converged poles are the same poles: only the
+start points differ (``tests/test_resonance.py``).
 """
 
 from __future__ import annotations
@@ -59,15 +70,33 @@ BOX_WALL_nm = 2.0
 #: Distance of the hard walls from the contact interfaces for the start points (nm).
 #: Walls right at the contacts keep the spurious levels of the pockets between a wall
 #: and a barrier as high as possible; a level behind a barrier moves by about its width,
-#: well inside the basin of the Newton iteration.
+#: well inside the basin of the Newton iteration. Spacers identical to a contact count
+#: as contact here (:meth:`_Stacks.absorb_contact_runs`), so they form no pockets.
 START_WALL_nm = 0.0
 
 #: Points of the coarse transmission scan that adds start points for broad resonances.
 SCAN_POINTS = 16
 
+#: Continuation in bias (:func:`track_resonances`): the full search runs at every
+#: TRACK_STRIDE-th bias of the sorted sweep, and at least every TRACK_MAX_STEP_V volts.
+#: Chosen in ``benchmarks/bench_physics.py``: a shorter stride costs more full searches
+#: and finds no more levels.
+TRACK_STRIDE = 8
+TRACK_MAX_STEP_V = 0.2
+# Extra levels the searched biases keep in their widened windows.
+_TRACK_EXTRA_LEVELS = 2
+# Rate dE/dV of a pole whose own rate is not finite: mid-way in [-1, 0] eV/V.
+_DEFAULT_LEVEL_RATE_eV_V = -0.5
+# Bias step (V) and energy probe (eV) of pole_rates: a pole moves by <~1e-6 eV, so the
+# Newton step's own error (~shift^2 / 10 meV) stays below 1e-4 of the shift.
+_RATE_STEP_V = 1e-6
+_RATE_PROBE_eV = 1e-6
+# A level predicted this far outside the window gets no start point there (eV).
+_OUTSIDE_eV = 2e-3
+
 # Phase scan of the closed box: grid points and refinement steps per level.
 _BOX_GRID = 16
-_BOX_REFINE_STEPS = 4
+_BOX_REFINE_STEPS = 8
 # Extra box levels above max_levels, because pockets next to the walls add spurious ones.
 _BOX_EXTRA_LEVELS = 2
 # Start points are moved this far above the higher contact band edge and below the real
@@ -80,6 +109,10 @@ _START_MERGE_eV = 2e-3
 # f = 1/t curved on the scale of the level spacing (>~ 10 meV, not Gamma): the error
 # left after a last step delta is about delta^2 / 10 meV, ~1e-16 eV after 1e-9 eV.
 _NEWTON_MAX_ITER = 14
+# After _SETTLE_ITER iterations, an iterate more than _BELOW_EDGE_eV below the higher
+# contact band edge is dropped (it wanders: no pole of interest lies there).
+_SETTLE_ITER = 3
+_BELOW_EDGE_eV = 5e-3
 _NEWTON_STOP_eV = 1e-9
 _NEWTON_ACCEPT_eV = 1e-6
 # Bounds of the difference step h (eV): h follows the last step, and its upper bound
@@ -159,14 +192,20 @@ class _Stacks:
     def absorb_contact_runs(self) -> _Stacks:
         """Equivalent stacks for the pole search, with contact-like edge layers removed.
 
-        For complex energies the kernel takes ``Im k >= 0`` in inner layers, which for a
-        propagating inner layer identical to the adjacent contact makes their interface
-        singular. An inner layer identical to its contact, with nothing but such layers
-        and zero-thickness layers between it and the contact, is part of the contact:
-        here it gets zero thickness and the parameters of the nearest layer that has a
-        thickness and differs from the contact. This multiplies ``t`` by a
-        nonvanishing phase factor (the contact's reference plane moves) and leaves the
-        poles where they are.
+        Contacts take the principal branch of ``k`` and inner layers the branch
+        continued from ``Im k >= 0`` on the real axis; the two differ in sign where
+        ``Re E`` lies below the band edge, which Newton iterates towards a level close to
+        the contact band edge cross. An inner layer identical to its contact then makes
+        their interface singular (0/0 in the recursion) and the iterate is lost (on 400
+        invented GaAs/AlGaAs-like double barriers with 5-40 nm wells and spacers, 6 of
+        2144 levels were missed without this step, 1 with it). An inner layer identical
+        to its contact, with nothing but such layers and zero-thickness layers between it
+        and the contact, is part of the contact: here it gets zero thickness and the
+        parameters of the nearest layer that has a thickness and differs from the
+        contact. This multiplies ``t`` by a nonvanishing phase factor (the contact's
+        reference plane moves) and leaves the poles where they are. Layers without
+        thickness in every stack are then dropped (they cost kernel time and change
+        nothing).
         """
         arrays = [self.band_edge_eV, self.mass] + ([] if self.gap_eV is None else [self.gap_eV])
         n_layers = self.band_edge_eV.shape[-1]
@@ -193,7 +232,21 @@ class _Stacks:
                 for target, a in zip(replaced, arrays):
                     target[hit, j] = a[rows[hit], source[hit]]
         gap = replaced[2] if self.gap_eV is not None else None
-        return _Stacks(replaced[0], replaced[1], thickness, gap)
+        return _Stacks(replaced[0], replaced[1], thickness, gap).drop_empty_layers()
+
+    def drop_empty_layers(self) -> _Stacks:
+        """The stacks without the inner layers that have zero thickness in every stack."""
+        keep = np.any(self.thickness_nm != 0.0, axis=0)
+        keep[0] = keep[-1] = True
+        if keep.all():
+            return self
+        return _Stacks(**{name: None if a is None else a[:, keep] for name, a in self.arrays.items()})
+
+    @property
+    def threshold_eV(self) -> np.ndarray:
+        """Higher of the two contacts' real band edges, shape (P,): below it ``t`` has no
+        propagating channel and its continuation has a branch point."""
+        return np.max(np.real(self.band_edge_eV[:, [0, -1]]), axis=-1)
 
     @property
     def barrier_top_eV(self) -> np.ndarray:
@@ -201,6 +254,75 @@ class _Stacks:
         inner = np.real(self.band_edge_eV[:, 1:-1])
         present = self.thickness_nm[:, 1:-1] > 0.0
         return np.max(np.where(present, inner, -np.inf), axis=-1, initial=-np.inf)
+
+
+def fold_contact_spacers(band_edge_eV, mass, thickness_nm, *, gap_eV=None) -> dict:
+    """Kernel arguments of an equivalent stack without the spacers identical to a contact.
+
+    Inner layers identical to their contact (with only such layers between them and the
+    contact) are moved into the contact, and layers left without thickness in every
+    stack are dropped (:meth:`_Stacks.absorb_contact_runs`). The transmitted amplitude
+    only gains a phase factor (the contact's reference plane moves): transmission,
+    reflection probability and the poles are those of the original stack, for fewer
+    layers in the kernel.
+
+    Parameters
+    ----------
+    band_edge_eV, mass, thickness_nm, gap_eV
+        Layer arrays of shape (..., L), as for :func:`physics.transfer.scattering`.
+
+    Returns
+    -------
+    dict
+        ``band_edge_eV``, ``mass``, ``thickness_nm``, ``gap_eV`` of shape (..., L'),
+        ``L' <= L``.
+    """
+    stacks, lead = _Stacks.flatten(band_edge_eV, mass, thickness_nm, gap_eV)
+    folded = stacks.absorb_contact_runs()
+    return {key: None if a is None else a.reshape(lead + a.shape[-1:]) for key, a in folded.arrays.items()}
+
+
+def _flat_window(window_eV, lead: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """The window bounds broadcast to the leading shape and flattened, shape (P,) each."""
+    lo = np.broadcast_to(np.asarray(window_eV[0], float), lead).reshape(-1)
+    hi = np.broadcast_to(np.asarray(window_eV[1], float), lead).reshape(-1)
+    return lo, hi
+
+
+def _search(stacks: _Stacks, lo, hi, max_levels: int, start_eV=None, scan_points: int = SCAN_POINTS):
+    """Start points (box levels, scan peaks, the caller's) and their Newton iterations.
+
+    Returns the ``(pole_eV, converged)`` arrays of :func:`refine_poles`, shape (P, K).
+    """
+    # Spacers identical to a contact belong to it: the box walls then sit at the first
+    # layer that differs, and no spurious levels of the pockets between a wall and a
+    # barrier are searched (absorb_contact_runs).
+    stacks = stacks.absorb_contact_runs()
+    width = np.maximum(hi - lo, 1e-6)
+    margin = 0.05 * width
+    box = closed_box_levels(stacks, lo - margin, hi + margin, max_levels + _BOX_EXTRA_LEVELS)
+
+    def apart_from_box(points, distance_eV):
+        # A start point this close to a box level only repeats its Newton iteration.
+        known = np.isfinite(box[:, None, :])
+        gap = np.min(np.abs(points[..., None] - box[:, None, :]), axis=-1, initial=np.inf, where=known)
+        return np.where(gap < distance_eV, np.nan, points)
+
+    starts = [box]
+    if scan_points > 0:
+        peaks = _scan_peaks(stacks, lo, hi, scan_points, max_levels)
+        starts.append(apart_from_box(peaks, width[:, None] / scan_points))
+    if start_eV is not None:
+        starts.append(apart_from_box(start_eV, _START_MERGE_eV))
+    return refine_poles(stacks, np.concatenate(starts, axis=-1), lo_eV=lo, hi_eV=hi)
+
+
+def _report(stacks: _Stacks, pole, converged, lo, hi, max_levels: int, lead: tuple[int, ...]) -> Resonances:
+    """The lowest ``max_levels`` distinct converged poles inside [lo, hi], as Resonances."""
+    energy, fwhm = _select_levels(pole, converged, lo, hi, max_levels)
+    above = energy > stacks.barrier_top_eV[:, None]
+    shape = lead + (max_levels,)
+    return Resonances(energy.reshape(shape), fwhm.reshape(shape), above.reshape(shape))
 
 
 def find_resonances(
@@ -243,34 +365,247 @@ def find_resonances(
         Arrays of shape ``(..., max_levels)``.
     """
     stacks, lead = _Stacks.flatten(band_edge_eV, mass, thickness_nm, gap_eV)
-    lo = np.broadcast_to(np.asarray(window_eV[0], float), lead).reshape(-1)
-    hi = np.broadcast_to(np.asarray(window_eV[1], float), lead).reshape(-1)
-    width = np.maximum(hi - lo, 1e-6)
-
-    margin = 0.05 * width
-    box = closed_box_levels(stacks, lo - margin, hi + margin, max_levels + _BOX_EXTRA_LEVELS)
-
-    def apart_from_box(points, distance_eV):
-        # A start point this close to a box level only repeats its Newton iteration.
-        known = np.isfinite(box[:, None, :])
-        gap = np.min(np.abs(points[..., None] - box[:, None, :]), axis=-1, initial=np.inf, where=known)
-        return np.where(gap < distance_eV, np.nan, points)
-
-    starts = [box]
-    if scan_points > 0:
-        peaks = _scan_peaks(stacks, lo, hi, scan_points, max_levels)
-        starts.append(apart_from_box(peaks, width[:, None] / scan_points))
+    lo, hi = _flat_window(window_eV, lead)
+    extra = None
     if start_eV is not None:
         extra = np.asarray(start_eV, float)
         extra = np.broadcast_to(extra, lead + extra.shape[-1:]).reshape(-1, extra.shape[-1])
-        starts.append(apart_from_box(extra, _START_MERGE_eV))
-    start = np.concatenate(starts, axis=-1)
+    pole, converged = _search(stacks, lo, hi, max_levels, extra, scan_points)
+    return _report(stacks, pole, converged, lo, hi, max_levels, lead)
 
-    pole, converged = refine_poles(stacks.absorb_contact_runs(), start, lo_eV=lo, hi_eV=hi)
-    energy, fwhm = _select_levels(pole, converged, lo, hi, max_levels)
+
+def track_resonances(
+    band_edge_eV,
+    mass,
+    thickness_nm,
+    *,
+    bias_V,
+    gap_eV=None,
+    window_eV=(0.0, 1.0),
+    max_levels: int = 4,
+    scan_points: int = SCAN_POINTS,
+) -> Resonances:
+    """Quasi-bound levels along a bias sweep, by continuation in bias.
+
+    The levels of :func:`find_resonances` at every bias, for a fraction of the cost.
+    The full search (box levels, scan, Newton) runs at every :data:`TRACK_STRIDE`-th
+    bias of the sorted sweep, never more than :data:`TRACK_MAX_STEP_V` apart, in the
+    window widened by the bias step to either side. Each pole found there gets its
+    rate ``dE_p/dV`` (:func:`pole_rates`). At the biases in between, Newton's method
+    starts from the cubic Hermite interpolation in bias of a level's pole and rate at
+    the two searched neighbours, or from one neighbour's tangent where the level
+    entered or left the window on the way (natural-parameter continuation with a
+    tangent predictor; Allgower & Georg, Introduction to Numerical Continuation
+    Methods, SIAM 2003, ch. 2). Where a start point is lost on the way (two levels
+    anticrossing between searched biases send both predictions to one pole), that bias
+    gets the full search too.
+
+    No level is missed for want of a start point: in the linear-drop profile every
+    band edge moves by ``-f V`` with ``0 <= f <= 1``, so a level moves by at most
+    ``|dV|`` eV (Hellmann–Feynman: ``dE/dV = -<f>``), and every level inside a bias's
+    window lies inside the widened windows of both searched neighbours.
+
+    Parameters
+    ----------
+    band_edge_eV, mass, thickness_nm, gap_eV
+        As for :func:`find_resonances`, with the bias axis second to last: shape
+        (..., nV, L).
+    bias_V : array_like, shape (nV,)
+        Bias of each profile along that axis (V), in any order.
+    window_eV : (lo, hi)
+        Energy window, scalars or arrays broadcastable to (..., nV).
+    max_levels, scan_points
+        As for :func:`find_resonances`.
+
+    Returns
+    -------
+    Resonances
+        Arrays of shape ``(..., nV, max_levels)``.
+    """
+    stacks, lead = _Stacks.flatten(band_edge_eV, mass, thickness_nm, gap_eV)
+    bias = np.asarray(bias_V, float).reshape(-1)
+    if not lead or lead[-1] != bias.size:
+        raise ValueError(f"the layer arrays' bias axis (second to last) has {lead[-1:]} entries, bias_V {bias.size}")
+    lo, hi = _flat_window(window_eV, lead)
+    n_bias = bias.size
+    order = np.argsort(bias, kind="stable")
+    searched = _searched_positions(bias[order])
+    if searched.size == n_bias:
+        pole, converged = _search(stacks, lo, hi, max_levels, scan_points=scan_points)
+        return _report(stacks, pole, converged, lo, hi, max_levels, lead)
+
+    # Rows of the flattened (..., nV) leading shape: row = run * nV + bias index.
+    runs = lo.size // n_bias
+    sorted_bias = bias[order]
+
+    def rows_at(positions):
+        return (n_bias * np.arange(runs)[:, None] + order[positions]).ravel()
+
+    # The full search at the searched biases, in windows widened by the bias step to
+    # each neighbour, down to the contacts' band edge at most (no level lies below).
+    step = np.diff(sorted_bias[searched])
+    reach = np.tile(np.maximum(np.append(step, 0.0), np.insert(step, 0, 0.0)), runs)
+    rows = rows_at(searched)
+    searched_stacks = stacks.subset(rows)
+    wide_lo = np.maximum(lo[rows] - reach, np.minimum(searched_stacks.threshold_eV, lo[rows]))
+    wide_hi = hi[rows] + reach
+    n_wide = max_levels + _TRACK_EXTRA_LEVELS
+    pole_s, converged_s = _search(searched_stacks, wide_lo, wide_hi, n_wide, scan_points=scan_points)
+    energy_s, width_s = _select_levels(pole_s, converged_s, wide_lo, wide_hi, n_wide)
+    known = energy_s - 0.5j * width_s
+    # dU/dV of the profile from the nearest bias of another value (exact for the
+    # linear drop of physics.profile).
+    values, value_index = np.unique(sorted_bias, return_inverse=True)
+    other = value_index[searched] + 1
+    other = np.where(other < values.size, other, value_index[searched] - 1).clip(0)
+    dV = np.tile(values[other] - sorted_bias[searched], runs)
+    other_rows = rows_at(np.searchsorted(sorted_bias, values[other]))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        edge_rate = (stacks.band_edge_eV[other_rows] - searched_stacks.band_edge_eV) / dV[:, None]
+    rate = pole_rates(searched_stacks, np.where(np.isfinite(edge_rate), edge_rate, 0.0), known)
+
+    # Every other bias starts from its neighbours' poles.
+    between = np.setdiff1d(np.arange(n_bias), searched)
+    rows_b = rows_at(between)
+    start = _continuation_starts(
+        known.reshape(runs, searched.size, -1),
+        rate.reshape(runs, searched.size, -1),
+        sorted_bias[searched],
+        np.searchsorted(searched, between) - 1,
+        sorted_bias[between],
+    ).reshape(rows_b.size, -1)
+    pole_b, converged_b = _refine_between(stacks.subset(rows_b), start, lo[rows_b], hi[rows_b], max_levels, scan_points)
+
+    energy = np.full((lo.size, max_levels), np.nan)
+    width = np.full((lo.size, max_levels), np.nan)
+    energy[rows], width[rows] = _select_levels(pole_s, converged_s, lo[rows], hi[rows], max_levels)
+    energy[rows_b], width[rows_b] = _select_levels(pole_b, converged_b, lo[rows_b], hi[rows_b], max_levels)
     above = energy > stacks.barrier_top_eV[:, None]
     shape = lead + (max_levels,)
-    return Resonances(energy.reshape(shape), fwhm.reshape(shape), above.reshape(shape))
+    return Resonances(energy.reshape(shape), width.reshape(shape), above.reshape(shape))
+
+
+def _refine_between(stacks: _Stacks, start, lo, hi, max_levels: int, scan_points: int):
+    """Newton's method from the continuation's start points (P, K); the full search too
+    where a start point is lost. Returns ``(pole_eV, converged)`` like refine_poles."""
+    # A level predicted well outside the window gets no start point: above it, it is
+    # not reported; below it, it may have left through the contact band edge (no pole
+    # on this sheet any more) or the prediction may be poor (levels that anticross on
+    # the way bend away from their tangents), which only the full search tells.
+    below = start.real < lo[:, None] - _OUTSIDE_eV
+    start = np.where(below | (start.real > hi[:, None] + _OUTSIDE_eV), np.nan, start)
+    pole, converged = refine_poles(stacks.absorb_contact_runs(), start, lo_eV=lo, hi_eV=hi)
+    # A start point lost on the way ran into another one's pole, as both do when two
+    # levels anticross between the searched biases, or did not converge: the
+    # continuation is not to be trusted there either, and the full search runs too.
+    again = np.flatnonzero(np.any(below | (np.isfinite(start) & ~converged), axis=-1))
+    if again.size == 0:
+        return pole, converged
+    pole_again, converged_again = _search(stacks.subset(again), lo[again], hi[again], max_levels, scan_points=scan_points)
+    # Both sets of poles go to the selection, which merges the ones found twice.
+    extra = pole_again.shape[-1]
+    pole = np.concatenate([pole, np.full((pole.shape[0], extra), np.nan + 0j)], axis=-1)
+    converged = np.concatenate([converged, np.zeros((pole.shape[0], extra), bool)], axis=-1)
+    pole[again, -extra:] = pole_again
+    converged[again, -extra:] = converged_again
+    return pole, converged
+
+
+def _searched_positions(sorted_bias: np.ndarray) -> np.ndarray:
+    """Positions in the sorted sweep where the full search runs (both ends included):
+    greedily as far apart as TRACK_STRIDE positions and TRACK_MAX_STEP_V volts allow."""
+    n = sorted_bias.size
+    positions = [0]
+    for k in range(1, n):  # scheduling only: a few scalar comparisons per bias
+        last = positions[-1]
+        if k == n - 1 or k + 1 - last > TRACK_STRIDE or sorted_bias[k + 1] - sorted_bias[last] > TRACK_MAX_STEP_V:
+            positions.append(k)
+    return np.asarray(positions)
+
+
+def pole_rates(stacks: _Stacks, edge_rate_eV_V: np.ndarray, pole_eV: np.ndarray) -> np.ndarray:
+    """Rate of change ``dE_p/dV`` of converged poles with bias, shape (P, K), complex.
+
+    One Newton step (the difference form of :func:`refine_poles`) from each pole on the
+    profile moved by :data:`_RATE_STEP_V` along ``edge_rate_eV_V`` (``dU/dV`` of each
+    layer, shape (P, L)): the step is the pole's shift to first order, the tangent
+    (Euler) predictor of continuation methods. NaN where the step is not finite.
+    """
+    rows, column = np.nonzero(np.isfinite(pole_eV))
+    rate = np.full(pole_eV.shape, np.nan, dtype=complex)
+    if rows.size == 0:
+        return rate
+    moved = _Stacks(
+        stacks.band_edge_eV + _RATE_STEP_V * edge_rate_eV_V, stacks.mass, stacks.thickness_nm, stacks.gap_eV
+    ).absorb_contact_runs()
+    h = _RATE_PROBE_eV
+    probe = pole_eV[rows, column][:, None] + np.array([-h, h])
+    log_t = scattering(probe, **moved.rows(rows)).log_t
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        shift = h / np.tanh(0.5 * (log_t[:, 1] - log_t[:, 0]))
+    rate[rows, column] = np.where(np.isfinite(shift), shift / _RATE_STEP_V, np.nan)
+    return rate
+
+
+def _mutual_nearest(distance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs (i, j) that are each other's nearest in ``distance`` (..., K, K), ``inf`` =
+    never; the partner's index, or -1, for either side."""
+    to_right, to_left = np.argmin(distance, axis=-1), np.argmin(distance, axis=-2)
+    index = np.arange(distance.shape[-1])
+    left_paired = np.isfinite(np.min(distance, axis=-1)) & (np.take_along_axis(to_left, to_right, axis=-1) == index)
+    right_paired = np.isfinite(np.min(distance, axis=-2)) & (np.take_along_axis(to_right, to_left, axis=-1) == index)
+    return np.where(left_paired, to_right, -1), np.where(right_paired, to_left, -1)
+
+
+def _continuation_starts(known, rate, searched_bias, interval, bias) -> np.ndarray:
+    """Start points at the biases between searched ones, shape (R, nB, 2K).
+
+    Parameters
+    ----------
+    known, rate : ndarray of complex, shape (R, nS, K)
+        Poles at the searched biases (NaN-padded) and their ``dE_p/dV``.
+    searched_bias : ndarray, shape (nS,)
+        The searched biases, ascending.
+    interval : ndarray of int, shape (nB,)
+        For each bias in between, the searched bias below it.
+    bias : ndarray, shape (nB,)
+
+    A level is a pole followed from one searched bias to the next: a pole below and a
+    pole above whose tangent predictions (:func:`pole_rates`) each land nearest the
+    other (mutually), no farther than the bias step times 1 eV/V (a level moves by at
+    most ``|dV|`` eV). Between them its start point is the cubic Hermite interpolation
+    in bias of the pole and its rate at both ends; a pole without a partner (a level
+    that entered or left the window on the way) starts from its own tangent.
+    """
+    step = np.diff(searched_bias)[None, :, None, None]
+    rate = np.where(np.isfinite(rate), rate, _DEFAULT_LEVEL_RATE_eV_V)
+    left, right = known[:, :-1, :, None], known[:, 1:, None, :]
+    left_rate, right_rate = rate[:, :-1, :, None], rate[:, 1:, None, :]
+    mismatch = np.abs(left + left_rate * step - right) + np.abs(right - right_rate * step - left)
+    mismatch = np.where(mismatch <= 2.0 * step, mismatch, np.inf)  # NaN poles fail too
+    to_right, to_left = _mutual_nearest(mismatch)
+
+    below, above = known[:, interval], known[:, interval + 1]
+    below_rate, above_rate = rate[:, interval], rate[:, interval + 1]
+    width = np.diff(searched_bias)[interval][None, :, None]
+    offset = (bias - searched_bias[interval])[None, :, None]
+    # Partner of each pole below, with its rate (NaN where unpaired).
+    partner_index = to_right[:, interval]
+    paired = partner_index >= 0
+    partner = np.where(paired, np.take_along_axis(above, partner_index.clip(0), axis=-1), np.nan)
+    partner_rate = np.take_along_axis(above_rate, partner_index.clip(0), axis=-1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.where(width > 0.0, offset / width, 0.0)
+    hermite = (
+        (1.0 + 2.0 * t) * (1.0 - t) ** 2 * below
+        + t * (1.0 - t) ** 2 * width * below_rate
+        + t * t * (3.0 - 2.0 * t) * partner
+        - t * t * (1.0 - t) * width * partner_rate
+    )
+    from_below = np.where(paired, hermite, below + below_rate * offset)
+    entered = to_left[:, interval] < 0
+    from_above = np.where(entered, above + above_rate * (offset - width), np.nan)
+    return np.concatenate([from_below, from_above], axis=-1)
 
 
 # --- closed box -------------------------------------------------------------------
@@ -478,7 +813,7 @@ def refine_poles(
     # Start above both contact band edges (the branch points of t; below them the real
     # axis is a branch cut, and Newton steps across a branch point go astray) and just
     # below the real axis, the side from which the poles are reached.
-    threshold = np.repeat(np.max(np.real(stacks.band_edge_eV[:, [0, -1]]), axis=-1), n_starts)
+    threshold = np.repeat(stacks.threshold_eV, n_starts)
     z = np.where(z.real < threshold + _START_ABOVE_EDGE_eV, threshold + _START_ABOVE_EDGE_eV + 1j * z.imag, z)
     z = np.where(z.imag == 0.0, z - 1j * _START_BELOW_AXIS_eV, z)
     span = np.maximum(hi_eV - lo_eV, 1e-6)
@@ -488,7 +823,7 @@ def refine_poles(
     active = np.flatnonzero(np.isfinite(z))
     settled = np.zeros(z.shape, dtype=bool)
     column = np.arange(n_starts)
-    for _ in range(_NEWTON_MAX_ITER):
+    for iteration in range(_NEWTON_MAX_ITER):
         if active.size == 0:
             break
         rows = active // n_starts
@@ -517,6 +852,10 @@ def refine_poles(
             (updated.real < lo_eV[rows] - limit)
             | (updated.real > hi_eV[rows] + limit)
             | (-updated.imag > span[rows])
+            # Still below the contact band edge after the first steps: no pole of this
+            # sheet lies there (a Siegert pole has Re E below the edge only when it is
+            # broader than its height above it), the iterate is lost.
+            | ((iteration >= _SETTLE_ITER) & (updated.real < threshold[active] - _BELOW_EDGE_eV))
         )
         # Two start points that have met follow the same path: keep the first. A point
         # within half a width of a pole already settled is bound for that pole too.

@@ -12,7 +12,7 @@ from scipy.optimize import brentq, minimize_scalar, newton
 from physics.constants import HBAR2_2M0_eV_nm2, HBAR_eV_s
 from physics.device import Device
 from physics.profile import biased_profile
-from physics.resonance import box_phase, closed_box_states, find_resonances, _Stacks
+from physics.resonance import _Stacks, box_phase, closed_box_states, find_resonances, pole_rates, track_resonances
 from physics.transfer import transmission
 
 WELL_MASS, BARRIER_MASS, OFFSET_eV = 0.067, 0.092, 0.3
@@ -220,3 +220,104 @@ def test_sub_nano_eV_level_matches_the_sampled_line():
     top, at, fwhm = _transmission_fwhm(edge, mass, thickness, level, width)
     assert fwhm == pytest.approx(width, rel=1e-3)
     assert abs(at - level) < 0.01 * width
+
+
+def test_ground_level_of_a_wide_well_next_to_the_band_edge_is_found():
+    # A 40 nm well between thick barriers, with and without spacers: its ground level
+    # lies 3 meV above the contact band edge, where Newton iterates cross below the edge.
+    # Thick barriers make it the bound state of the finite well (textbook even-state
+    # condition, as in finite_well_levels), solved here with scipy.optimize.brentq.
+    well_nm = 40.0
+
+    def even(E):
+        k = np.sqrt(E * WELL_MASS / HBAR2_2M0_eV_nm2)
+        kappa = np.sqrt((OFFSET_eV - E) * BARRIER_MASS / HBAR2_2M0_eV_nm2)
+        return k * np.tan(k * well_nm / 2) / WELL_MASS - kappa / BARRIER_MASS
+
+    first_pole = HBAR2_2M0_eV_nm2 / WELL_MASS * (np.pi / well_nm) ** 2
+    ground = brentq(even, 1e-9, first_pole - 1e-12, xtol=1e-15)
+    assert ground < 4e-3
+    stacks = [double_barrier(barrier, well_nm=well_nm, spacer_nm=spacer) for barrier in (8.0, 16.0) for spacer in (0.0, 2.0, 10.0)]
+    edge, mass, thickness = (np.stack(a) for a in zip(*stacks))
+    levels = find_resonances(edge, mass, thickness, window_eV=(0.0, 0.29), max_levels=3)
+    np.testing.assert_allclose(levels.energy_eV[:, 0], ground, atol=10e-6)
+    assert np.all(np.diff(levels.energy_eV, axis=-1) > 5e-3)  # the next two levels, none twice
+
+
+def _sweep_levels(device, bias_V, window_eV=(0.0, 0.6)):
+    profile = biased_profile(device, bias_V)
+    lo = np.maximum(0.0, -np.asarray(bias_V))
+    window = (lo, lo + (window_eV[1] - window_eV[0]))
+    tracked = track_resonances(**profile.arrays, bias_V=bias_V, window_eV=window)
+    searched = find_resonances(**profile.arrays, window_eV=window)
+    return tracked, searched
+
+
+def _assert_finds_every_level_of(tracked, searched):
+    """Every level of ``searched`` is in ``tracked`` at the same bias, to rounding."""
+    for index in zip(*np.nonzero(np.isfinite(searched.energy_eV))):
+        distance = np.abs(tracked.energy_eV[index[:-1]] - searched.energy_eV[index])
+        match = np.nanargmin(np.where(np.isnan(distance), np.inf, distance))
+        assert distance[match] < 1e-12, f"level {searched.energy_eV[index]} eV at {index} not tracked"
+        assert tracked.width_eV[index[:-1]][match] == pytest.approx(searched.width_eV[index], rel=1e-8)
+
+
+def test_tracking_along_the_sweep_finds_the_levels_of_the_full_search():
+    # Internal consistency: continuation in bias only changes the Newton start points,
+    # so it must converge to the same poles as the full search at every bias. Invented
+    # InGaAs/AlAs-like double barriers of different wells, a sweep in shuffled order
+    # through reverse and forward bias (levels leave the window through the contact band
+    # edge on the way).
+    rng = np.random.default_rng(3)
+    n = 6
+    edge = np.tile([0.0, 0.0, 1.2, 0.0, 1.2, 0.0, 0.0], (n, 1))
+    mass = np.tile([0.041, 0.041, 0.15, 0.041, 0.15, 0.041, 0.041], (n, 1))
+    thickness = np.tile([0.0, 2.0, 1.5, 4.5, 1.5, 2.0, 0.0], (n, 1))
+    thickness[:, 3] = rng.uniform(3.0, 9.0, n)
+    device = Device(edge, mass, thickness, np.full(n, 1e18), np.full(n, 1e18), 300.0)
+    bias = rng.permutation(np.linspace(-0.5, 1.0, 61))
+    tracked, searched = _sweep_levels(device, bias)
+    assert tracked.energy_eV.shape == (n, bias.size, 4)
+    assert np.isfinite(searched.energy_eV).sum() > 300
+    _assert_finds_every_level_of(tracked, searched)
+    np.testing.assert_array_equal(np.isnan(tracked.energy_eV), np.isnan(searched.energy_eV))
+    np.testing.assert_array_equal(tracked.above_barrier, searched.above_barrier)
+
+
+def test_tracking_falls_back_to_the_full_search_where_levels_anticross():
+    # Internal consistency on two invented triple barriers at 77 K whose wells' levels
+    # anticross under bias: between two searched biases both continuation start points
+    # run into one pole, and the full search has to take over there (without it, the
+    # level at 0.224 V, 1 meV above the band edge, is lost).
+    edge = np.array([[0.0, 0.0, 0.718, 0.0, 0.558, 0.0, 0.591, 0.0, 0.0], [0.0, 0.0, 0.322, 0.0, 0.802, 0.0, 0.312, 0.0, 0.0]])
+    mass = np.array(
+        [[0.041, 0.041, 0.095, 0.041, 0.114, 0.041, 0.146, 0.041, 0.041],
+         [0.041, 0.041, 0.135, 0.041, 0.137, 0.041, 0.081, 0.041, 0.041]]
+    )
+    thickness = np.array([[0.0, 3.9, 1.45, 5.82, 2.73, 3.29, 2.02, 1.37, 0.0], [0.0, 1.87, 1.63, 5.79, 2.17, 4.8, 1.5, 2.26, 0.0]])
+    device = Device(edge, mass, thickness, [1e18] * 2, [1e18] * 2, 77.0)
+    bias = np.linspace(0.02, 1.0, 25)
+    tracked, searched = _sweep_levels(device, bias, window_eV=(0.0, 0.22))
+    _assert_finds_every_level_of(tracked, searched)
+    at = np.argmin(np.abs(bias - 0.224))
+    assert 0.0 < tracked.energy_eV[0, at, 0] < 2e-3
+
+
+def test_pole_rate_is_the_slope_of_the_level_with_bias():
+    # dE_p/dV from one perturbed Newton step against central differences of converged
+    # poles; Hellmann–Feynman (textbook perturbation theory): a level in the linear drop
+    # moves down at a rate between 0 and 1 eV/V, about 1/2 for a symmetric stack.
+    edge, mass, thickness = double_barrier(5.0, spacer_nm=2.0)
+    device = Device(edge[None], mass[None], thickness[None], [1e18], [1e18], 300.0)
+    step_V = 1e-4
+    bias = np.array([0.1 - step_V, 0.1, 0.1 + step_V])
+    profile = biased_profile(device, bias)
+    levels = find_resonances(**profile.arrays, window_eV=(0.0, 0.29), max_levels=1)
+    pole = levels.energy_eV[0, :, 0] - 0.5j * levels.width_eV[0, :, 0]
+    stacks, _ = _Stacks.flatten(**{k: v[0, 1:2] for k, v in profile.arrays.items() if v is not None}, gap_eV=None)
+    edge_rate = (profile.band_edge_eV[0, 2] - profile.band_edge_eV[0, 0]) / (2 * step_V)
+    rate = pole_rates(stacks, edge_rate[None], pole[1:2, None])[0, 0]
+    difference = (pole[2] - pole[0]) / (2 * step_V)
+    assert rate.real == pytest.approx(difference.real, rel=1e-4)
+    assert abs(rate.imag - difference.imag) < 1e-4 * abs(difference)
+    assert -1.0 < rate.real < 0.0 and rate.real == pytest.approx(-0.5, abs=0.1)
