@@ -22,13 +22,12 @@ forced to one thread.
 Run: ``.venv/bin/python benchmarks/bench_physics.py`` (about three minutes).
 """
 
-import os
+from harness import RESULTS_DIR, machine, single_thread
 
-for _variable in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMEXPR_NUM_THREADS"):
-    os.environ[_variable] = "1"
+single_thread()  # before numpy is imported
 
 import json  # noqa: E402
-import platform  # noqa: E402
+import os  # noqa: E402
 import subprocess  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
@@ -36,7 +35,6 @@ import tracemalloc  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
-import scipy  # noqa: E402
 
 import physics.current as current_module  # noqa: E402
 import physics.resonance as resonance_module  # noqa: E402
@@ -45,7 +43,7 @@ from physics.device import Device  # noqa: E402
 from physics.metrics import CATALOGUE, MetricRequest, evaluate  # noqa: E402
 from physics.profile import biased_profile  # noqa: E402
 
-RESULTS = Path(__file__).resolve().parent / "results" / "physics.json"
+RESULTS = RESULTS_DIR / "physics.json"
 NODE_COUNTS = (32, 48, 64, 80, 96, 128, 192, 256, 400)
 
 # The brute-force reference of the tests (Tsu–Esaki integral from scipy.constants on
@@ -425,7 +423,9 @@ def iv_memory(stacks=64):
     """Memory of one I-V evaluation (all metrics, 51 biases) of ``stacks`` designs, MiB."""
     code = _MEMORY_PROBE.format(benchmarks=str(Path(__file__).resolve().parent), stacks=stacks)
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
-    output = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True)
+    output = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True, cwd=env["PYTHONPATH"]
+    )
     peak, before, high_water = (float(v) for v in output.stdout.split())
     return dict(
         stacks=stacks,
@@ -433,26 +433,6 @@ def iv_memory(stacks=64):
         rss_before_MiB=before,
         peak_rss_MiB=high_water,
         peak_rss_increase_MiB=high_water - before,
-    )
-
-
-def machine():
-    model = platform.processor()
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                model = line.split(":", 1)[1].strip()
-                break
-    except OSError:
-        pass
-    return dict(
-        cpu=model,
-        logical_cpus=os.cpu_count(),
-        python=platform.python_version(),
-        numpy=np.__version__,
-        scipy=scipy.__version__,
-        platform=platform.platform(),
-        threads="1 (OMP/OPENBLAS/MKL_NUM_THREADS=1)",
     )
 
 
