@@ -62,6 +62,7 @@ from optuna.trial import FrozenTrial, TrialState
 
 from optimize import objectives as objectives_module
 from optimize.errors import InputError
+from physics.metrics import SWEEP_METRICS
 
 __all__ = [
     "HYPERVOLUME_REFERENCE",
@@ -84,8 +85,6 @@ _CURVE_CHUNK = 64
 #: Front designs listed in the terminal summary.
 SUMMARY_DESIGNS = 10
 
-_SWEEP_METRICS = ("peak_current_A_cm2", "peak_voltage_V", "valley_current_A_cm2", "valley_voltage_V", "pvcr",
-                  "swing_product_W_cm2")
 
 _LOST_WORKER = "abandoned: its worker stopped responding (the design was retried)"
 
@@ -519,7 +518,7 @@ def _front_curves(spec, table: _Table, rows: np.ndarray):
     fraction = np.where(np.isnan(table.fraction[rows]), parsed, table.fraction[rows])
     batch = DesignBatch(tuple(layer.name for layer in spec.layers), base, fraction, table.thickness_nm[rows])
     requests = list(spec.metric_requests)
-    if spec.needs_iv and not any(r.name in _SWEEP_METRICS for r in requests):
+    if spec.needs_iv and not any(r.name in SWEEP_METRICS for r in requests):
         # Currents at a few stated biases only (leakage): ask for the whole sweep, whose
         # curve the front file carries.
         from physics.metrics import MetricRequest

@@ -79,14 +79,15 @@ CATALOGUE: dict[str, MetricInfo] = {
 }
 
 _LEVEL_METRICS = {"resonance_energy_eV", "resonance_width_eV", "transmission_contrast"}
-_SWEEP_METRICS = {
+#: Metrics read off the whole I–V sweep (peak and valley), as opposed to a current at one bias.
+SWEEP_METRICS = frozenset({
     "peak_current_A_cm2",
     "peak_voltage_V",
     "valley_current_A_cm2",
     "valley_voltage_V",
     "pvcr",
     "swing_product_W_cm2",
-}
+})
 
 
 @dataclass(frozen=True)
@@ -181,7 +182,7 @@ def _peak_and_valley(bias_V: np.ndarray, current: np.ndarray) -> dict[str, tuple
     """Peak/valley metrics of ``|J|`` along the sweep: name -> (value, reason)."""
     magnitude = np.abs(current)
     n_stacks, n_bias = magnitude.shape
-    values = {name: np.full(n_stacks, np.nan) for name in _SWEEP_METRICS}
+    values = {name: np.full(n_stacks, np.nan) for name in SWEEP_METRICS}
     reason = np.full(n_stacks, "", dtype=object)
     if n_bias < 3:
         reason[:] = "the bias sweep has fewer than 3 points"
@@ -211,10 +212,10 @@ def _peak_and_valley(bias_V: np.ndarray, current: np.ndarray) -> dict[str, tuple
     with np.errstate(divide="ignore", invalid="ignore"):
         values["pvcr"] = np.where(has_valley, peak_J / valley_J, np.nan)
     values["swing_product_W_cm2"] = np.where(has_valley, (peak_J - valley_J) * np.abs(valley_V - peak_V), np.nan)
-    reasons = {name: np.where(has_valley, "", reason).astype(str) for name in _SWEEP_METRICS}
+    reasons = {name: np.where(has_valley, "", reason).astype(str) for name in SWEEP_METRICS}
     for name in ("peak_voltage_V", "peak_current_A_cm2"):
         reasons[name] = np.where(has_peak, "", reason).astype(str)
-    return {name: (values[name], reasons[name]) for name in _SWEEP_METRICS}
+    return {name: (values[name], reasons[name]) for name in SWEEP_METRICS}
 
 
 def _level_metrics(device, profile_arrays, energy, log10_t, max_levels):
@@ -309,7 +310,7 @@ def evaluate(
         computed.update(metrics)
         level_energy, level_width = levels.energy_eV[:, None], levels.width_eV[:, None]
 
-    sweep = np.asarray(bias_V, float) if names & _SWEEP_METRICS else np.zeros(0)
+    sweep = np.asarray(bias_V, float) if names & SWEEP_METRICS else np.zeros(0)
     leakage_bias = sorted({float(r.at_bias_V) for r in requests if r.name == "leakage_A_cm2"})
     swept_current = None
     if sweep.size or leakage_bias:
