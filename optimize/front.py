@@ -51,7 +51,6 @@ Global attributes: ``campaign_toml``, ``software_version``, ``created_utc``,
 from __future__ import annotations
 
 import math
-import re
 import sys
 import warnings
 from pathlib import Path
@@ -62,6 +61,7 @@ from optuna.trial import FrozenTrial, TrialState
 
 from optimize import objectives as objectives_module
 from optimize.errors import InputError
+from optimize.io import netcdf_name
 from physics.metrics import SWEEP_METRICS
 
 __all__ = [
@@ -193,20 +193,7 @@ def hypervolume(points: np.ndarray, reference) -> float:
 # --------------------------------------------------------------------------------------
 
 
-_NOT_NAME = re.compile(r"[^A-Za-z0-9_]")
 _UNIT_SUFFIXES = (("_A_cm2", "A cm-2"), ("_W_cm2", "W cm-2"), ("_eV", "eV"), ("_nm", "nm"), ("_V", "V"))
-
-
-def netcdf_name(label: str) -> str:
-    """A valid netCDF/CF variable name for a metric label.
-
-    ``"leakage_A_cm2@0.05V"`` → ``"leakage_A_cm2_at_0p05V"``: ``@`` becomes ``_at_``, a
-    decimal point ``p``, a minus sign ``m``; anything else outside ``[A-Za-z0-9_]``
-    becomes ``_``.
-    """
-    text = label.replace("@", "_at_").replace(".", "p").replace("-", "m").replace("+", "")
-    text = _NOT_NAME.sub("_", text).strip("_")
-    return text if text and not text[0].isdigit() else f"m_{text}"
 
 
 def metric_units(label: str) -> str:

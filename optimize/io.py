@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import re
 import tempfile
 from collections.abc import Iterator
 from datetime import datetime, timezone
@@ -75,3 +76,18 @@ MODEL_CAUTION = (
     "no X-valley or phonon-assisted valley current, no space charge. The peak-to-valley ratio is "
     "overestimated. Results rank designs; they do not replace measurements of grown wafers."
 )
+
+
+_NOT_NAME = re.compile(r"[^A-Za-z0-9_]")
+
+
+def netcdf_name(label: str) -> str:
+    """A valid netCDF/CF variable name for a metric label.
+
+    ``"leakage_A_cm2@0.05V"`` → ``"leakage_A_cm2_at_0p05V"``: ``@`` becomes ``_at_``, a
+    decimal point ``p``, a minus sign ``m``; anything else outside ``[A-Za-z0-9_]``
+    becomes ``_``.
+    """
+    text = label.replace("@", "_at_").replace(".", "p").replace("-", "m").replace("+", "")
+    text = _NOT_NAME.sub("_", text).strip("_")
+    return text if text and not text[0].isdigit() else f"m_{text}"

@@ -13,7 +13,7 @@ import numpy as np
 import xarray as xr
 
 from optimize import spec as spec_module
-from optimize.io import MODEL_CAUTION, provenance_attrs, write_netcdf
+from optimize.io import MODEL_CAUTION, netcdf_name, provenance_attrs, write_netcdf
 from optimize.stack import nominal_batch, to_device
 from physics import metrics as metrics_module
 from physics.profile import biased_profile, interface_positions_nm
@@ -77,18 +77,13 @@ def solve_dataset(spec) -> xr.Dataset:
         attrs = {"units": info.units, "long_name": info.long_name}
         if reason:
             attrs["undefined_because"] = reason
-        data[_variable_name(label)] = ((), float(values[0]), attrs)
+        data[netcdf_name(label)] = ((), float(values[0]), attrs)
     data.update(_state_variables(spec, device, evaluation, bias_V))
 
     attrs = provenance_attrs(spec.text)
     attrs.update(title=f"tunnelsmith solution of {spec.path.name}", temperature_K=spec.temperature_K)
     return xr.Dataset({k: xr.Variable(*v) for k, v in data.items()},
                       coords={k: xr.Variable(*v) for k, v in coords.items()}, attrs=attrs)
-
-
-def _variable_name(label: str) -> str:
-    """A netCDF-safe variable name for a metric label (``leakage_A_cm2@0.05V``)."""
-    return label.replace("@", "_at_").replace(".", "p").replace("-", "m")
 
 
 def _on_sweep(evaluation, bias_V) -> np.ndarray:
