@@ -43,7 +43,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
 
-from optimize.io import save_figure
+from optimize.io import netcdf_name, save_figure
 
 __all__ = ["FOOTER", "plot_solution", "plot_campaign", "plot_tolerance"]
 
@@ -708,7 +708,7 @@ def _metric_variable(ds: xr.Dataset | None, label: str, dim: str) -> xr.DataArra
     """
     if ds is None:
         return None
-    safe = label.replace("@", "_at_").replace(".", "p").replace("-", "m")
+    safe = netcdf_name(label)
     wanted = {_key(label), _key(safe)}
     for name, variable in ds.data_vars.items():
         if variable.dims != (dim,) or variable.dtype.kind not in "fiu":
