@@ -138,13 +138,13 @@ from optuna.distributions import BaseDistribution
 from optuna.exceptions import DuplicatedStudyError, UpdateFinishedTrialError
 from optuna.samplers import NSGAIISampler
 from optuna.storages import JournalStorage
-from optuna.storages.journal import JournalFileBackend
 from optuna.trial import FrozenTrial, TrialState
 
 from optimize import objectives as objectives_module
 from optimize import space
-from optimize.errors import InputError
+from optimize.errors import InputError, StorageWriteError
 from optimize.io import write_text
+from optimize.journal_file import CrashSafeJournalFileBackend, report_torn_tail
 from physics.materials import IndirectValleyWarning
 
 __all__ = [
@@ -371,33 +371,18 @@ class CoalescingJournalStorage(JournalStorage):
         return list(range(last - count + 1, last + 1))
 
 
-class GroupCommitFileBackend(JournalFileBackend):
-    """Optuna's journal file, flushed to the disk once per batch instead of per append.
+class GroupCommitFileBackend(CrashSafeJournalFileBackend):
+    """The crash-safe journal file, flushed to the disk once per batch instead of per append.
 
-    Each append is still one ``write`` under the journal's file lock, so it is visible
-    to every other process at once and survives the death of the writer (SIGKILL);
-    :meth:`sync` (``fsync``) after every batch bounds what an operating-system crash or
-    power cut could lose to the last batch.
+    Each append is still one write sequence under the journal's file lock, so it is
+    visible to every other process at once and survives the death of the writer
+    (SIGKILL; a torn tail is cut by the next writer); :meth:`sync` (``fsync``) after
+    every batch bounds what an operating-system crash or power cut could lose to the
+    last batch.
     """
 
-    def append_logs(self, logs: list[dict[str, Any]]) -> None:
-        import json
-
-        from optuna.storages.journal._file import get_lock_file
-
-        text = "\n".join(json.dumps(log, separators=(",", ":")) for log in logs) + "\n"
-        with get_lock_file(self._lock):
-            with open(self._file_path, "ab") as handle:
-                handle.write(text.encode("utf-8"))
-                handle.flush()
-
-    def sync(self) -> None:
-        """Force everything appended so far onto the disk."""
-        descriptor = os.open(self._file_path, os.O_RDONLY)
-        try:
-            os.fsync(descriptor)
-        finally:
-            os.close(descriptor)
+    def __init__(self, file_path: str) -> None:
+        super().__init__(file_path, sync_each_append=False)
 
 
 def _coalescing_supported() -> bool:
@@ -413,7 +398,7 @@ def _coalescing_supported() -> bool:
         return False
     return ("_last_created_trial_id_by_this_process" in replay._apply_create_trial.__code__.co_names
             and hasattr(JournalStorage, "_write_log") and hasattr(JournalStorage, "_sync_with_backend")
-            and {"_lock", "_file_path"} <= set(JournalFileBackend.__init__.__code__.co_names))
+            and {"_lock", "_file_path"} <= set(CrashSafeJournalFileBackend.__mro__[1].__init__.__code__.co_names))
 
 
 def journal_path(run_dir: Path) -> Path:
@@ -474,10 +459,40 @@ def open_storage(run_dir: Path, url: str | None = None, *, writer: bool = True, 
         raise InputError(str(run_dir), None, f"no campaign storage here (expected {path.name})",
                          "give the run directory written by `tunnelsmith optimize`, or --storage URL "
                          "for a campaign kept in a database")
+    _refuse_foreign_journal(path)
+    if not writer:
+        report_torn_tail(path)
+        return JournalStorage(CrashSafeJournalFileBackend(str(path)))
     path.parent.mkdir(parents=True, exist_ok=True)
-    if writer and _coalescing_supported():
-        return CoalescingJournalStorage(GroupCommitFileBackend(str(path)))
-    return JournalStorage(JournalFileBackend(str(path)))
+    backend = GroupCommitFileBackend(str(path))
+    backend.repair()
+    if _coalescing_supported():
+        return CoalescingJournalStorage(backend)
+    return JournalStorage(backend)
+
+
+def _refuse_foreign_journal(path: Path) -> None:
+    """Refuse a file at the journal's place that is not an Optuna journal (never append to it)."""
+    import json
+
+    if not path.exists():
+        return
+    if not path.is_file():
+        raise InputError(str(path), None, "is not a regular file, so it cannot hold the campaign journal",
+                         "move it away or give another --out directory")
+    with open(path, "rb") as handle:
+        first = handle.readline(1 << 20)
+    if not first:
+        return
+    try:
+        log = json.loads(first)
+        ok = isinstance(log, dict) and "op_code" in log
+    except ValueError:
+        ok = not first.endswith(b"\n") and first.startswith(b'{"op_code"')  # a torn first line
+    if not ok:
+        raise InputError(str(path), None, "exists but is not a campaign journal (its first line is not an "
+                         "Optuna journal record), so it is left untouched",
+                         "move the file away, or give --out a directory of its own for this campaign")
 
 
 # --------------------------------------------------------------------------------------
@@ -1249,11 +1264,19 @@ def _run(spec, run_dir: Path, url: str | None, budget: int, deadline: float | No
             outcome = "interrupted"
         finally:
             # Whatever ended the loop, no trial of this worker stays RUNNING.
-            worker.abandon_in_flight(INTERRUPTED if outcome == "interrupted" or stop.requested
-                                     else f"{INTERNAL_ERROR}: the worker stopped on an error")
-            if isinstance(store, CoalescingJournalStorage):
-                store.flush(to_disk=True)
-            heartbeat.stop()
+            try:
+                worker.abandon_in_flight(INTERRUPTED if outcome == "interrupted" or stop.requested
+                                         else f"{INTERNAL_ERROR}: the worker stopped on an error")
+                if isinstance(store, CoalescingJournalStorage):
+                    store.flush(to_disk=True)
+            except StorageWriteError:
+                # The storage refuses writes (disk full): the trials left RUNNING have no
+                # heartbeat any more and the next run retries them as stale. Report the
+                # first failure, the one that stopped the loop, when there was one.
+                if outcome is not None:
+                    raise
+            finally:
+                heartbeat.stop()
         if stop.requested:
             outcome = "interrupted"
         if children:

@@ -1,6 +1,7 @@
 """The ``tunnelsmith`` command: a thin layer over the Python API.
 
-Exit status: 0 success, 1 internal error, 2 bad input (one paragraph naming the file,
+Exit status: 0 success, 1 internal error or a storage that refuses writes (disk full:
+nothing finished is lost, free space and run again), 2 bad input (one paragraph naming the file,
 the key and the fix, no traceback), 130 interrupted.
 """
 
@@ -11,7 +12,7 @@ import re
 import sys
 from pathlib import Path
 
-from optimize.errors import InputError
+from optimize.errors import InputError, StorageWriteError
 
 EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 
@@ -138,6 +139,9 @@ def main(argv: list[str] | None = None) -> int:
     except InputError as error:
         print(f"error: {error}", file=sys.stderr)
         return EXIT_INPUT
+    except StorageWriteError as error:
+        print(f"error: {error}", file=sys.stderr)
+        return EXIT_INTERNAL
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return EXIT_INTERRUPTED

@@ -46,3 +46,30 @@ class InputError(Exception):
     def __str__(self) -> str:
         place = self.file if self.key is None else f"{self.file}: {self.key}"
         return f"{place}: {self.problem}. Fix: {self.fix}"
+
+
+class StorageWriteError(Exception):
+    """The campaign storage could not take a write (disk full, quota, I/O error).
+
+    Raised only after the partial write has been taken back, so the storage holds every
+    trial that finished before it and nothing half-written. The command line prints the
+    message and exits with status 1 (an environment fault, not bad input).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The storage file that refused the write.
+    reason : str
+        The operating system's account of the failure (e.g. ``No space left on device``).
+    """
+
+    def __init__(self, path, reason: str):
+        super().__init__(path, reason)
+        self.path = str(path)
+        self.reason = _one_line(reason)
+
+    def __str__(self) -> str:
+        return (f"{self.path}: cannot write to the campaign storage ({self.reason}). Every trial "
+                f"that finished before this is kept and the file holds no half-written line. "
+                f"Fix: free space (or fix the disk) and run the same command again; the campaign "
+                f"resumes where it stopped")
