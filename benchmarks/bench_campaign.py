@@ -6,7 +6,7 @@ Measures, with the default sampler and storage (NSGA-II, journal file):
   I–V campaign (the same stack with a 21-point bias sweep and PVCR/peak-current
   objectives): finished trials per second over the whole loop, and the share of the
   loop's wall time spent outside the physics (sampler, storage, bookkeeping) — the
-  physics being every call of :func:`optimize.objectives.metric_values`;
+  physics being every call of :func:`tunnelsmith.optimize.model.objectives.metric_values`;
 * the cost per trial of the samplers themselves after 2000 finished trials (NSGA-II and
   multi-objective TPE; in-memory storage, no physics), which decides the default sampler;
 * finished trials per second with 1 and 2 local worker processes on the journal file
@@ -51,8 +51,18 @@ sys.path.insert(0, str(ROOT))
 import numpy as np  # noqa: E402
 import optuna  # noqa: E402
 
-from optimize import campaign, objectives, space  # noqa: E402
-from optimize.spec import load  # noqa: E402
+from tunnelsmith.optimize.commands import optimize
+
+from tunnelsmith.optimize.search import loop
+
+from tunnelsmith.optimize.search import records
+
+from tunnelsmith.optimize.search import sampler as sampler_module
+
+from tunnelsmith.optimize.search import storage
+from tunnelsmith.optimize.model import objectives
+from tunnelsmith.optimize.model import space
+from tunnelsmith.optimize.inputs.reader import load  # noqa: E402
 
 RESULTS = ROOT / "benchmarks" / "results" / "campaign.json"
 DEMO = ROOT / "campaigns" / "demo.toml"
@@ -85,7 +95,7 @@ def iv_campaign_text() -> str:
 
 
 class PhysicsClock:
-    """Wall time spent inside :func:`optimize.objectives.metric_values`."""
+    """Wall time spent inside :func:`tunnelsmith.optimize.model.objectives.metric_values`."""
 
     def __init__(self) -> None:
         self.seconds = 0.0
@@ -113,7 +123,7 @@ class LoopClock:
 
     def __init__(self) -> None:
         self.seconds = 0.0
-        self._original = campaign._Worker.run
+        self._original = loop._Worker.run
 
     def __enter__(self):
         clock = self
@@ -126,11 +136,11 @@ class LoopClock:
             finally:
                 clock.seconds += time.perf_counter() - start
 
-        campaign._Worker.run = run
+        loop._Worker.run = run
         return self
 
     def __exit__(self, *exc) -> None:
-        campaign._Worker.run = self._original
+        loop._Worker.run = self._original
 
 
 def campaign_throughput(path: Path, trials: int, label: str) -> dict:
@@ -139,12 +149,12 @@ def campaign_throughput(path: Path, trials: int, label: str) -> dict:
     try:
         with PhysicsClock() as physics, LoopClock() as loop, contextlib.redirect_stderr(io.StringIO()):
             start = time.perf_counter()
-            code = campaign.run_campaign(path, out_dir=run_dir, trials=trials, quiet=True)
+            code = optimize.run_campaign(path, out_dir=run_dir, trials=trials, quiet=True)
             total = time.perf_counter() - start
         assert code == 0
         finished = len([t for t in optuna.load_study(study_name=load(path).name,
-                                                       storage=campaign.open_storage(run_dir, writer=False)).trials
-                        if campaign.counts_toward_budget(t)])
+                                                       storage=storage.open_storage(run_dir, writer=False)).trials
+                        if records.counts_toward_budget(t)])
     finally:
         shutil.rmtree(run_dir, ignore_errors=True)
     return {
@@ -176,7 +186,7 @@ def sampler_cost(sampler_name: str, history: int = 2000, probe: int = 64) -> dic
         stand_in += [(-1) ** k * barriers * 0.3 + 0.1 * rng.random() for k in range(n_objectives - 1)]
         return stand_in
 
-    sampler = campaign.make_sampler(sampler_name, seed=0, search_space=dists, batch=64)
+    sampler = sampler_module.make_sampler(sampler_name, seed=0, search_space=dists, batch=64)
     study = optuna.create_study(directions=objectives.directions(spec), sampler=sampler)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -208,12 +218,12 @@ def workers_throughput(path: Path, trials: int, workers: int, storage: str | Non
     run_dir = Path(tempfile.mkdtemp(prefix="bench-workers-"))
     extra = ["--storage", storage] if storage else []
     try:
-        subprocess.run([sys.executable, "-m", "optimize.cli", "optimize", str(path), "--out", str(run_dir),
+        subprocess.run([sys.executable, "-m", "tunnelsmith", "optimize", str(path), "--out", str(run_dir),
                         "--trials", str(trials), "--workers", str(workers), "--quiet", *extra],
                        check=True, cwd=ROOT, capture_output=True)
         study = optuna.load_study(study_name=load(path).name,
-                                  storage=storage or campaign.open_storage(run_dir, writer=False))
-        done = [t for t in study.trials if campaign.counts_toward_budget(t)]
+                                  storage=storage or storage.open_storage(run_dir, writer=False))
+        done = [t for t in study.trials if records.counts_toward_budget(t)]
         first = min(t.datetime_start for t in study.trials)
         last = max(t.datetime_complete for t in done)
         span = (last - first).total_seconds()

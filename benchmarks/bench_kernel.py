@@ -32,8 +32,8 @@ import numpy as np  # noqa: E402
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from physics.constants import HBAR2_2M0_eV_nm2  # noqa: E402
-from physics.transfer import transmission  # noqa: E402
+from tunnelsmith.physics.constants import HBAR2_2M0_eV_nm2  # noqa: E402
+from tunnelsmith.physics.transfer import transmission  # noqa: E402
 
 RESULTS = ROOT / "benchmarks" / "results" / "kernel.json"
 N_STACKS, N_ENERGIES, N_LAYERS = 64, 1000, 12

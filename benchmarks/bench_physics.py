@@ -36,12 +36,12 @@ from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-import physics.current as current_module  # noqa: E402
-import physics.resonance as resonance_module  # noqa: E402
-from physics.current import current_density  # noqa: E402
-from physics.device import Device  # noqa: E402
-from physics.metrics import CATALOGUE, MetricRequest, evaluate  # noqa: E402
-from physics.profile import biased_profile  # noqa: E402
+import tunnelsmith.physics.current as current_module  # noqa: E402
+import tunnelsmith.physics.resonance as resonance_module  # noqa: E402
+from tunnelsmith.physics.current import current_density  # noqa: E402
+from tunnelsmith.physics.device import Device  # noqa: E402
+from tunnelsmith.physics.metrics import CATALOGUE, MetricRequest, evaluate  # noqa: E402
+from tunnelsmith.physics.profile import biased_profile  # noqa: E402
 
 RESULTS = RESULTS_DIR / "physics.json"
 NODE_COUNTS = (32, 48, 64, 80, 96, 128, 192, 256, 400)
@@ -401,7 +401,7 @@ import os, sys, tracemalloc
 sys.path.insert(0, {benchmarks!r})
 import numpy as np
 from bench_physics import rtd_batch
-from physics.metrics import CATALOGUE, MetricRequest, evaluate
+from tunnelsmith.physics.metrics import CATALOGUE, MetricRequest, evaluate
 
 def status(key):
     for line in open("/proc/self/status"):

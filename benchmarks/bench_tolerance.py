@@ -28,9 +28,9 @@ import numpy as np  # noqa: E402
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from optimize import spec as spec_module  # noqa: E402
-from optimize import tolerance  # noqa: E402
-from optimize.stack import nominal_batch  # noqa: E402
+from tunnelsmith.optimize.inputs import reader
+from tunnelsmith.optimize.model import growth
+from tunnelsmith.optimize.model.stack import nominal_batch  # noqa: E402
 
 RESULTS = ROOT / "benchmarks" / "results" / "tolerance.json"
 TARGET_SAMPLES, TARGET_SECONDS = 10_000, 10.0
@@ -40,16 +40,16 @@ def time_case(path: Path, samples: int, requests=None) -> dict:
     """Time the Monte Carlo (draws, devices, physics in chunks) and, apart, the sensitivities."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        spec = spec_module.load(path)
+        spec = reader.load(path)
         nominal = nominal_batch(spec)
-        requests = list(requests) if requests is not None else tolerance.metric_requests(spec)
-        settings = tolerance.tolerance_settings(spec)
+        requests = list(requests) if requests is not None else growth.metric_requests(spec)
+        settings = growth.tolerance_settings(spec)
         start = time.perf_counter()
-        errors = tolerance.draw_growth_errors(nominal, spec, samples, np.random.default_rng(settings.seed))
-        values, _ = tolerance.evaluate_designs(spec, errors.batch, requests, contact_fraction=errors.contact_fraction)
+        errors = growth.draw_growth_errors(nominal, spec, samples, np.random.default_rng(settings.seed))
+        values, _ = growth.evaluate_designs(spec, errors.batch, requests, contact_fraction=errors.contact_fraction)
         seconds = time.perf_counter() - start
         start = time.perf_counter()
-        tolerance.monolayer_sensitivity(spec, nominal, requests)
+        growth.monolayer_sensitivity(spec, nominal, requests)
         sensitivity_s = time.perf_counter() - start
     labels = [r.label for r in requests]
     return {
@@ -59,7 +59,7 @@ def time_case(path: Path, samples: int, requests=None) -> dict:
         "metrics": labels,
         "energy_points": spec.energy.points,
         "bias_points": spec.bias.steps,
-        "designs_per_call": tolerance.designs_per_call(spec, requests),
+        "designs_per_call": growth.designs_per_call(spec, requests),
         "seconds": round(seconds, 3),
         "samples_per_s": round(samples / seconds, 1),
         "sensitivity_designs": 1 + 2 * len(nominal.layer_names),
@@ -72,7 +72,7 @@ def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer samples (a smoke run, not a measurement)")
     args = parser.parse_args()
-    from physics.metrics import MetricRequest
+    from tunnelsmith.physics.metrics import MetricRequest
 
     zero_bias_samples = 1_000 if args.quick else TARGET_SAMPLES
     iv_samples = 8 if args.quick else 64

@@ -12,9 +12,10 @@ import re
 import sys
 from pathlib import Path
 
-from optimize.errors import InputError, StorageWriteError
+from tunnelsmith.optimize.errors import (EXIT_INPUT, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_OK, InputError,
+                                         StorageWriteError)
+from tunnelsmith.optimize.version import software_version
 
-EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 
 
 def parse_duration_s(text: str) -> float:
@@ -82,22 +83,13 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def software_version() -> str:
-    from importlib.metadata import PackageNotFoundError, version
-
-    try:
-        return version("tunnelsmith")
-    except PackageNotFoundError:
-        return "0+unknown"
-
-
 def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "solve":
-        from optimize.solve import run_solve
+        from tunnelsmith.optimize.commands.solve import run_solve
 
         return run_solve(args.stack, out_dir=args.out)
     if args.command == "optimize":
-        from optimize.campaign import run_campaign
+        from tunnelsmith.optimize.commands.optimize import run_campaign
 
         timeout_s = None if args.timeout is None else parse_duration_s(args.timeout)
         return run_campaign(
@@ -105,29 +97,24 @@ def _dispatch(args: argparse.Namespace) -> int:
             workers=args.workers, storage=args.storage, quiet=args.quiet,
         )
     if args.command == "front":
-        from optimize.front import rebuild_front
+        from tunnelsmith.optimize.commands.front import rebuild_front
 
         return rebuild_front(args.run_dir, storage=args.storage, quiet=args.quiet)
     if args.command == "tolerance":
-        from optimize.tolerance import run_tolerance
+        from tunnelsmith.optimize.commands.tolerance import run_tolerance
 
         return run_tolerance(
             args.target, design=args.design, samples=args.samples, out_dir=args.out,
             storage=args.storage, quiet=args.quiet,
         )
     if args.command == "check":
-        from optimize.spec import describe, load
+        from tunnelsmith.optimize.commands.check import run_check
 
-        print(describe(load(args.file)))
-        return EXIT_OK
+        return run_check(args.file)
     if args.command == "materials":
-        from optimize.report import materials_table
+        from tunnelsmith.optimize.commands.materials import run_materials
 
-        if not args.temperature > 0:
-            raise InputError("command line", "--temperature", "the temperature must be positive",
-                             "give a temperature in kelvin, e.g. --temperature 77")
-        print(materials_table(args.temperature))
-        return EXIT_OK
+        return run_materials(args.temperature)
     raise AssertionError(args.command)
 
 

@@ -8,6 +8,10 @@ traceback.
 
 from __future__ import annotations
 
+#: Exit statuses of every command: success, internal or environment fault, bad input,
+#: interrupted (128 + SIGINT, the shell convention).
+EXIT_OK, EXIT_INTERNAL, EXIT_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
+
 
 def _one_line(text: str) -> str:
     # Messages are printed as a single paragraph: fold any line breaks that came from

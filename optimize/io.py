@@ -60,7 +60,7 @@ def save_figure(figure, path: str | os.PathLike, **savefig_kwargs) -> Path:
 
 def provenance_attrs(input_text: str) -> dict[str, str]:
     """Global attributes every output file carries: input text, version, time."""
-    from optimize.cli import software_version
+    from tunnelsmith.optimize.version import software_version
 
     return {
         "campaign_toml": input_text,

@@ -43,7 +43,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.ticker import MaxNLocator
 
-from optimize.io import netcdf_name, save_figure
+from tunnelsmith.optimize.io import netcdf_name, save_figure
 
 __all__ = ["FOOTER", "plot_solution", "plot_campaign", "plot_tolerance"]
 

@@ -70,11 +70,11 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import expit, logit
 
-from physics.constants import KB_eV_K, NC_300K_cm3, RICHARDSON_A_cm2_K2
-from physics.device import Device
-from physics.profile import DEFAULT_SLICE_nm, biased_profile
-from physics.resonance import Resonances, track_resonances
-from physics.transfer import scattering, transmission
+from tunnelsmith.physics.constants import KB_eV_K, NC_300K_cm3, RICHARDSON_A_cm2_K2
+from tunnelsmith.physics.device import Device
+from tunnelsmith.physics.profile import DEFAULT_SLICE_nm, biased_profile
+from tunnelsmith.physics.resonance import Resonances, track_resonances
+from tunnelsmith.physics.transfer import scattering, transmission
 
 #: Default number of energy nodes per bias (accuracy per node count in
 #: benchmarks/bench_physics.py).

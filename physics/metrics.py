@@ -32,11 +32,11 @@ from typing import Sequence
 
 import numpy as np
 
-from physics.current import DEFAULT_NODES, current_density
-from physics.device import Device
-from physics.profile import biased_profile
-from physics.resonance import find_resonances, fold_contact_spacers, transmission_peaks
-from physics.transfer import log10_transmission, scattering
+from tunnelsmith.physics.current import DEFAULT_NODES, current_density
+from tunnelsmith.physics.device import Device
+from tunnelsmith.physics.profile import biased_profile
+from tunnelsmith.physics.resonance import find_resonances, fold_contact_spacers, transmission_peaks
+from tunnelsmith.physics.transfer import log10_transmission, scattering
 
 
 @dataclass(frozen=True)

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from physics.device import Device
+from tunnelsmith.physics.device import Device
 
 #: Default slice thickness for sloped layers (nm); see the module docstring.
 DEFAULT_SLICE_nm = 0.25

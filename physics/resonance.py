@@ -60,8 +60,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.linalg import eigh_tridiagonal
 
-from physics.constants import HBAR2_2M0_eV_nm2, HBAR_eV_s
-from physics.transfer import scattering
+from tunnelsmith.physics.constants import HBAR2_2M0_eV_nm2, HBAR_eV_s
+from tunnelsmith.physics.transfer import scattering
 
 #: Distance of the hard walls from the contact interfaces in :func:`closed_box_states`
 #: (nm), so that band diagrams show a stretch of each contact.

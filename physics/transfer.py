@@ -64,7 +64,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from physics.constants import HBAR2_2M0_eV_nm2
+from tunnelsmith.physics.constants import HBAR2_2M0_eV_nm2
 
 #: Distance from an inner layer's band edge below which the energy is moved to the edge
 #: plus this value, to avoid the k = 0 degeneracy of the plane-wave basis (eV).

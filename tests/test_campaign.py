@@ -1,6 +1,6 @@
 """Campaigns end to end: search space, objectives, the batch loop, storage, resume, signals, workers.
 
-Most tests drive the real command line (``python -m optimize.cli``) in a subprocess on
+Most tests drive the real command line (``python -m tunnelsmith``) in a subprocess on
 small campaigns written into a temporary directory (a few hundred energies, zero-bias
 metrics), so they exercise exactly what a user runs.
 """
@@ -8,6 +8,7 @@ metrics), so they exercise exactly what a user runs.
 from __future__ import annotations
 
 import signal
+import socket
 import subprocess
 import sys
 import time
@@ -17,131 +18,25 @@ import numpy as np
 import optuna
 import pytest
 
-from optimize import objectives, space
-from optimize.campaign import (
-    ATTR_FAILURE,
-    INTERRUPTED,
-    SYSTEM_WORKER,
-    BatchNSGAIISampler,
-    counts_toward_budget,
-    open_storage,
-    redact_url,
+from tunnelsmith.optimize.model import objectives
+from tunnelsmith.optimize.model import space
+from tunnelsmith.optimize.search.records import ATTR_FAILURE, INTERRUPTED, SYSTEM_WORKER, counts_toward_budget
+from tunnelsmith.optimize.search.sampler import BatchNSGAIISampler
+from tunnelsmith.optimize.search.storage import open_storage, redact_url
+from tunnelsmith.optimize.inputs.reader import load
+
+from conftest import (  # noqa: E402  (the shared test toolkit)
+    CONTACTS,
+    finished,
+    small_campaign,
+    start,
+    stored_trials,
+    tunnelsmith,
+    wait_for_finished,
+    write_campaign,
 )
-from optimize.spec import load
 
 ROOT = Path(__file__).resolve().parents[1]
-
-CONTACTS = """
-temperature_K = 300.0
-
-[emitter]
-material = "In0.53Ga0.47As"
-doping_cm3 = 2e18
-
-[collector]
-material = "In0.53Ga0.47As"
-doping_cm3 = 2e18
-"""
-
-
-def small_campaign(name: str = "small", *, target_eV: float = 0.2, trials: int = 96, batch: int = 32,
-                   sampler: str = "nsga2", extra: str = "") -> str:
-    """A double-barrier campaign that evaluates fast: zero-bias metrics on 301 energies."""
-    return f"""{CONTACTS}
-[campaign]
-name = "{name}"
-
-[[layer]]
-name = "spacer_in"
-material = "In0.53Ga0.47As"
-thickness_nm = {{ min = 0.5, max = 2.0, step = 0.5 }}
-
-[[layer]]
-name = "barrier_in"
-material = "AlAs"
-thickness_ml = {{ min = 4, max = 8 }}
-
-[[layer]]
-name = "well"
-material = "In0.53Ga0.47As"
-thickness_ml = {{ min = 8, max = 24 }}
-
-[[layer]]
-name = "barrier_out"
-like = "barrier_in"
-
-[[layer]]
-name = "spacer_out"
-like = "spacer_in"
-
-[energy]
-from_eV = 0.0
-to_eV = 0.6
-points = 301
-
-[[objective]]
-metric = "resonance_energy_eV"
-target = {target_eV}
-
-[[objective]]
-metric = "total_thickness_nm"
-goal = "minimize"
-
-[[constraint]]
-metric = "resonance_width_eV"
-max = 0.05
-
-[search]
-sampler = "{sampler}"
-trials = {trials}
-batch = {batch}
-seed = 3
-{extra}
-"""
-
-
-def write_campaign(directory: Path, text: str, name: str = "campaign.toml") -> Path:
-    path = directory / name
-    path.write_text(text, encoding="utf-8")
-    return path
-
-
-def tunnelsmith(*args, cwd: Path, timeout: float = 180) -> subprocess.CompletedProcess:
-    """Run the command line as a user would, in ``cwd``."""
-    return subprocess.run([sys.executable, "-m", "optimize.cli", *map(str, args)], cwd=cwd, capture_output=True,
-                          text=True, timeout=timeout)
-
-
-def start(*args, cwd: Path) -> subprocess.Popen:
-    return subprocess.Popen([sys.executable, "-m", "optimize.cli", *map(str, args)], cwd=cwd,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-
-
-def stored_trials(run_dir: Path, name: str) -> list:
-    """Every trial of a run, read from its journal alone."""
-    storage = open_storage(run_dir, writer=False)
-    return optuna.load_study(study_name=name, storage=storage).get_trials(deepcopy=False)
-
-
-def finished(trials) -> list:
-    return [t for t in trials if counts_toward_budget(t)]
-
-
-def wait_for_finished(run_dir: Path, name: str, count: int, process: subprocess.Popen, timeout: float = 90) -> None:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        assert process.poll() is None, process.communicate()
-        if (run_dir / "campaign.journal").exists():
-            with_study = True
-            try:
-                done = len(finished(stored_trials(run_dir, name)))
-            except KeyError:  # the study is not created yet
-                with_study = False
-            if with_study and done >= count:
-                return
-        time.sleep(0.2)
-    raise AssertionError(f"fewer than {count} finished trials after {timeout} s")
-
 
 # --------------------------------------------------------------------------------------
 # Search space and objectives (no storage)
@@ -347,14 +242,17 @@ def test_changed_campaign_file_is_refused(tmp_path):
 
 def test_stale_trials_are_failed_once_and_retried(tmp_path, monkeypatch):
     """Dead local process, silent remote worker, live remote worker: only the first two are stale."""
-    from optimize import campaign
+    from tunnelsmith.optimize.search import records
+    from tunnelsmith.optimize.search import storage as storage_module
+    from tunnelsmith.optimize.search import study
+    from tunnelsmith.optimize.search import workers
 
     spec = load(write_campaign(tmp_path, small_campaign()))
     storage = open_storage(tmp_path, writer=True)
-    study = campaign.open_study(storage, spec, tmp_path)
+    study = study.open_study(storage, spec, tmp_path)
     dead = subprocess.Popen([sys.executable, "-c", "pass"])
     dead.wait()
-    owners = {"dead": f"{campaign.socket.gethostname()}:{dead.pid}:0000",
+    owners = {"dead": f"{socket.gethostname()}:{dead.pid}:0000",
               "silent": "elsewhere:1:aaaa", "alive": "elsewhere:2:bbbb"}
     numbers = {}
     for role, owner in owners.items():
@@ -364,13 +262,13 @@ def test_stale_trials_are_failed_once_and_retried(tmp_path, monkeypatch):
         numbers[role] = trial.number
     storage.flush()
     now = time.time()
-    storage.set_study_system_attr(study._study_id, campaign._BEAT_PREFIX + owners["silent"],
-                                  now - campaign.GRACE_PERIOD_S - 5)
-    storage.set_study_system_attr(study._study_id, campaign._BEAT_PREFIX + owners["alive"], now)
+    storage.set_study_system_attr(study._study_id, records._BEAT_PREFIX + owners["silent"],
+                                  now - storage_module.GRACE_PERIOD_S - 5)
+    storage.set_study_system_attr(study._study_id, records._BEAT_PREFIX + owners["alive"], now)
 
     me = "here:3:cccc"
-    assert campaign.recover_stale_trials(study, storage, me, study.get_trials(deepcopy=False)) == 2
-    assert campaign.recover_stale_trials(study, storage, me, study.get_trials(deepcopy=False)) == 0
+    assert workers.recover_stale_trials(study, storage, me, study.get_trials(deepcopy=False)) == 2
+    assert workers.recover_stale_trials(study, storage, me, study.get_trials(deepcopy=False)) == 0
     trials = study.get_trials(deepcopy=False)
     states = {role: trials[number].state.name for role, number in numbers.items()}
     assert states == {"dead": "FAIL", "silent": "FAIL", "alive": "RUNNING"}

@@ -1,20 +1,11 @@
 """The command line end to end: solve, check, materials, and bad input."""
 
-import subprocess
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 import xarray as xr
 
-ROOT = Path(__file__).resolve().parents[1]
-CAMPAIGNS = ROOT / "campaigns"
-
-
-def tunnelsmith(*args, cwd=None, timeout=300):
-    return subprocess.run([sys.executable, "-m", "optimize.cli", *map(str, args)], cwd=cwd or ROOT,
-                          capture_output=True, text=True, timeout=timeout)
+from conftest import CAMPAIGNS, tunnelsmith  # noqa: E402  (the shared test toolkit)
 
 
 SMALL_STACK = """
@@ -136,7 +127,7 @@ def test_missing_file_and_bad_timeout(tmp_path):
 
 
 def test_duration_parser():
-    from optimize.cli import parse_duration_s
+    from tunnelsmith.optimize.cli import parse_duration_s
 
     assert parse_duration_s("8h") == 8 * 3600
     assert parse_duration_s("1h30m") == 5400

@@ -10,8 +10,8 @@ from scipy import constants as sc
 from scipy.integrate import quad
 from scipy.optimize import brentq
 
-from physics.constants import KB_eV_K, NC_300K_cm3, RICHARDSON_A_cm2_K2
-from physics.current import (
+from tunnelsmith.physics.constants import KB_eV_K, NC_300K_cm3, RICHARDSON_A_cm2_K2
+from tunnelsmith.physics.current import (
     _gauss_legendre_01,
     _NodeDensity,
     adaptive_nodes,
@@ -23,9 +23,9 @@ from physics.current import (
     transport_transmission,
     tsu_esaki_prefactor_A_cm2_eV,
 )
-from physics.device import Device
-from physics.profile import biased_profile
-from physics.transfer import transmission
+from tunnelsmith.physics.device import Device
+from tunnelsmith.physics.profile import biased_profile
+from tunnelsmith.physics.transfer import transmission
 
 
 def rtd(barrier_nm=1.5, well_nm=4.5, absorption_eV=None, emitter_doping=1e18, collector_doping=1e18):

@@ -10,19 +10,14 @@ import optuna
 import pytest
 import xarray as xr
 
-from optimize import objectives
-from optimize.front import (
-    HYPERVOLUME_REFERENCE,
-    build_datasets,
-    hypervolume,
-    merge_front,
-    netcdf_name,
-    nondominated_mask,
-    rebuild_front,
-)
-from optimize.spec import load
-from optimize.stack import DesignBatch, split_material
-from test_campaign import (
+from tunnelsmith.optimize.model import objectives
+from tunnelsmith.optimize.results.front import HYPERVOLUME_REFERENCE, build_datasets
+from tunnelsmith.optimize.search.pareto import hypervolume, merge_front, nondominated_mask
+from tunnelsmith.optimize.io import netcdf_name
+from tunnelsmith.optimize.commands.front import rebuild_front
+from tunnelsmith.optimize.inputs.reader import load
+from tunnelsmith.optimize.model.stack import DesignBatch, split_material
+from conftest import (
     CONTACTS,
     finished,
     small_campaign,

@@ -17,9 +17,9 @@ from pathlib import Path
 import optuna
 import pytest
 
-from optimize.errors import StorageWriteError
-from optimize.journal_file import TORN_SUFFIX, CrashSafeJournalFileBackend, torn_tail_bytes
-from test_campaign import small_campaign, tunnelsmith, write_campaign
+from tunnelsmith.optimize.errors import StorageWriteError
+from tunnelsmith.optimize.search.journal_file import TORN_SUFFIX, CrashSafeJournalFileBackend, torn_tail_bytes
+from conftest import small_campaign, tunnelsmith, write_campaign
 
 
 def stock_trials(path: Path) -> list:
@@ -176,7 +176,7 @@ def test_disk_full_during_a_campaign_exits_1_with_the_fix(tmp_path):
     import sys
 
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(hook), os.environ.get("PYTHONPATH", "")]))
-    result = subprocess.run([sys.executable, "-m", "optimize.cli", "optimize", str(campaign), "--out", "run",
+    result = subprocess.run([sys.executable, "-m", "tunnelsmith", "optimize", str(campaign), "--out", "run",
                              "--quiet"], cwd=tmp_path, capture_output=True, text=True, timeout=180, env=env)
     assert result.returncode == 1, result.stderr
     assert "Traceback" not in result.stderr

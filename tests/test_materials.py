@@ -11,8 +11,8 @@ import warnings
 import numpy as np
 import pytest
 
-from physics import materials as mt
-from physics.materials import IndirectValleyWarning, UnknownMaterialError
+from tunnelsmith.physics import materials as mt
+from tunnelsmith.physics.materials import IndirectValleyWarning, UnknownMaterialError
 
 
 def _quiet(name, **kwargs):

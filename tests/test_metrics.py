@@ -6,12 +6,12 @@ The stacks are invented InGaAs/AlAs-like double barriers with plain-number param
 import numpy as np
 import pytest
 
-import physics.metrics as metrics
-from physics.current import current_density
-from physics.device import Device
-from physics.metrics import CATALOGUE, MetricRequest, evaluate, needs_iv
-from physics.resonance import find_resonances
-from physics.transfer import transmission
+import tunnelsmith.physics.metrics as metrics
+from tunnelsmith.physics.current import current_density
+from tunnelsmith.physics.device import Device
+from tunnelsmith.physics.metrics import CATALOGUE, MetricRequest, evaluate, needs_iv
+from tunnelsmith.physics.resonance import find_resonances
+from tunnelsmith.physics.transfer import transmission
 
 ENERGY = np.linspace(0.0, 1.0, 401)
 BIAS = np.linspace(0.0, 1.0, 51)

@@ -13,7 +13,7 @@ import pytest
 import xarray as xr
 from matplotlib import image as mpimg
 
-from optimize import plots
+from tunnelsmith.optimize import plots
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 LAYERS = ("spacer", "barrier_in", "well", "barrier_out", "cladding")
@@ -27,7 +27,7 @@ def _lorentzian(energy_eV, centre_eV, width_eV):
 
 
 def make_solution(*, with_states=True, with_current=True, with_band=True, position_coord=False) -> xr.Dataset:
-    """solution.nc look-alike. The band edge is stored as optimize.solve writes it: two
+    """solution.nc look-alike. The band edge is stored as tunnelsmith.optimize.commands.solve writes it: two
     samples per slice on a ``position`` dimension whose values sit in ``position_nm``;
     ``position_coord=True`` stores one sample per slice boundary on a coordinate instead."""
     energy_eV = np.linspace(0.0, 0.8, 801)

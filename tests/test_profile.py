@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from physics.device import Device
-from physics.profile import DEFAULT_SLICE_nm, biased_profile, interface_positions_nm, slices_per_layer
+from tunnelsmith.physics.device import Device
+from tunnelsmith.physics.profile import DEFAULT_SLICE_nm, biased_profile, interface_positions_nm, slices_per_layer
 
 
 def double_barrier(n_stacks=1, well_nm=4.5):
@@ -49,7 +49,7 @@ def test_zero_bias_needs_no_slices():
 def test_a_stack_is_sliced_the_same_whatever_its_batch_neighbours():
     """Each stack is sliced on its own: the transmission under bias of a stack alone
     equals its transmission inside a batch with a much thicker neighbour, to rounding."""
-    from physics.transfer import transmission
+    from tunnelsmith.physics.transfer import transmission
 
     thin, thick = double_barrier(well_nm=3.0), double_barrier(well_nm=9.0)
     both = Device(*(np.concatenate([getattr(thin, f), getattr(thick, f)]) for f in
@@ -101,7 +101,7 @@ def test_default_slicing_is_converged_against_direct_integration(kind):
     device = Device(edge, mass, thickness, 1e18, 1e18, 300.0)
     energy = np.linspace(0.005, 0.6, 300)
     profile = biased_profile(device, [0.3])
-    from physics.transfer import transmission
+    from tunnelsmith.physics.transfer import transmission
 
     sliced = transmission(energy, profile.band_edge_eV, profile.mass, profile.thickness_nm)[0, 0]
     _, _, reference = integrate_schrodinger(energy, layers, contact, contact, bias_V=0.3)

@@ -9,11 +9,11 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq, minimize_scalar, newton
 
-from physics.constants import HBAR2_2M0_eV_nm2, HBAR_eV_s
-from physics.device import Device
-from physics.profile import biased_profile
-from physics.resonance import _Stacks, box_phase, closed_box_states, find_resonances, pole_rates, track_resonances
-from physics.transfer import transmission
+from tunnelsmith.physics.constants import HBAR2_2M0_eV_nm2, HBAR_eV_s
+from tunnelsmith.physics.device import Device
+from tunnelsmith.physics.profile import biased_profile
+from tunnelsmith.physics.resonance import _Stacks, box_phase, closed_box_states, find_resonances, pole_rates, track_resonances
+from tunnelsmith.physics.transfer import transmission
 
 WELL_MASS, BARRIER_MASS, OFFSET_eV = 0.067, 0.092, 0.3
 
@@ -193,7 +193,7 @@ def test_finite_difference_box_converges_to_particle_in_a_box():
 def test_finite_difference_box_agrees_with_the_prufer_levels(monkeypatch):
     # Internal consistency: the grid-free phase count and the BenDaniel–Duke matrix
     # describe the same closed box (walls as in closed_box_states).
-    import physics.resonance as resonance
+    import tunnelsmith.physics.resonance as resonance
 
     edge, mass, thickness = double_barrier(2.0, well_nm=5.0, spacer_nm=1.0)
     energy, _, _ = closed_box_states(edge, mass, thickness, window_eV=(0.0, 0.6), grid_nm=0.005)

@@ -62,7 +62,7 @@ max = 0.080
 def test_robust_campaign_stores_robust_and_nominal_values(tmp_path):
     campaign = tmp_path / "robust.toml"
     campaign.write_text(ROBUST_CAMPAIGN)
-    result = subprocess.run([sys.executable, "-m", "optimize.cli", "optimize", str(campaign), "--out",
+    result = subprocess.run([sys.executable, "-m", "tunnelsmith", "optimize", str(campaign), "--out",
                              str(tmp_path / "run"), "--quiet"], cwd=ROOT, capture_output=True, text=True, timeout=600)
     assert result.returncode == 0, result.stderr
     with xr.open_dataset(tmp_path / "run" / "front.nc") as front:

@@ -24,17 +24,18 @@ import math
 import os
 import signal
 import subprocess
-import sys
 import time
 from pathlib import Path
 
 import optuna
 import pytest
+from conftest import CLI
 import xarray as xr
 from optuna.study import StudyDirection
 from optuna.trial import TrialState
 
-from optimize.campaign import ATTR_FAILURE, ATTR_RETRY_OF, SYSTEM_WORKER, counts_toward_budget, redact_url
+from tunnelsmith.optimize.search.records import ATTR_FAILURE, ATTR_RETRY_OF, SYSTEM_WORKER, counts_toward_budget
+from tunnelsmith.optimize.search.storage import redact_url
 from pg_cluster import Cluster
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -132,7 +133,7 @@ def worker_env() -> dict:
 
 
 def cli(*args) -> list[str]:
-    return [sys.executable, "-m", "optimize.cli", *map(str, args)]
+    return [*CLI, *map(str, args)]
 
 
 def run_cli(*args, cwd: Path, timeout: float = 120) -> subprocess.CompletedProcess:
@@ -171,7 +172,7 @@ def load_when_created(url: str, name: str, workers, timeout: float = 60) -> optu
 def expected_front(study) -> list[int]:
     """Trial numbers of the non-dominated feasible COMPLETE trials, each design once (its first trial).
 
-    Independent of ``optimize.front``: a plain pairwise dominance test on the values as
+    Independent of ``tunnelsmith.optimize.results.front``: a plain pairwise dominance test on the values as
     stored, turned to minimisation with the study's directions.
     """
     signs = [1.0 if d == StudyDirection.MINIMIZE else -1.0 for d in study.directions]

@@ -1,4 +1,4 @@
-"""Tests of the stack/campaign file format (optimize.spec) and its error messages."""
+"""Tests of the stack/campaign file format (tunnelsmith.optimize.inputs) and its error messages."""
 
 from __future__ import annotations
 
@@ -10,22 +10,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from optimize import spec as spec_module
-from optimize.errors import InputError
-from optimize.spec import (
-    BiasSweep,
-    Choices,
-    EnergyGrid,
-    FloatRange,
-    IntRange,
-    ModelSpec,
-    SearchSpec,
-    describe,
-    design_count,
-    load,
-    search_dimensions,
-)
-from physics.materials import material
+from tunnelsmith.optimize.inputs import schema
+from tunnelsmith.optimize.errors import InputError
+from tunnelsmith.optimize.inputs.schema import BiasSweep, Choices, EnergyGrid, FloatRange, IntRange, ModelSpec, SearchSpec
+from tunnelsmith.optimize.inputs.describe import describe
+from tunnelsmith.optimize.inputs.dimensions import design_count, search_dimensions
+from tunnelsmith.optimize.inputs.reader import load
+from tunnelsmith.physics.materials import material
 
 DATA = Path(__file__).parent / "data"
 
@@ -345,17 +336,17 @@ def test_campaign_name_defaults_to_file_stem(tmp_path):
 
 
 def test_metric_request_matches_physics_metrics_when_present():
-    metrics = pytest.importorskip("physics.metrics")
-    assert spec_module.MetricRequest is metrics.MetricRequest
-    assert set(spec_module.METRICS) == set(metrics.CATALOGUE)
+    metrics = pytest.importorskip("tunnelsmith.physics.metrics")
+    assert schema.MetricRequest is metrics.MetricRequest
+    assert set(schema.METRICS) == set(metrics.CATALOGUE)
     for name, info in metrics.CATALOGUE.items():
-        assert spec_module.METRICS[name].needs_iv == (info.needs == "iv")
-        assert spec_module.METRICS[name].takes_bias == info.takes_bias
+        assert schema.METRICS[name].needs_iv == (info.needs == "iv")
+        assert schema.METRICS[name].takes_bias == info.takes_bias
 
 
 def test_metric_catalogue_is_the_design_list():
     # The eleven names of the design document's metric table.
-    assert list(spec_module.METRICS) == [
+    assert list(schema.METRICS) == [
         "resonance_energy_eV", "resonance_width_eV", "transmission_contrast", "peak_current_A_cm2",
         "peak_voltage_V", "valley_current_A_cm2", "valley_voltage_V", "pvcr", "swing_product_W_cm2",
         "leakage_A_cm2", "total_thickness_nm",

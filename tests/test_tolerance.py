@@ -3,21 +3,23 @@
 from __future__ import annotations
 
 import math
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import tunnelsmith
 from scipy.optimize import brentq
 from scipy.stats import norm
 
-from optimize import spec as spec_module
-from optimize import tolerance
-from optimize.errors import InputError
-from optimize.stack import DesignBatch, monolayer_nm, nominal_batch
-from physics import materials
-from physics.constants import HBAR2_2M0_eV_nm2
+from tunnelsmith.optimize.inputs import reader
+from tunnelsmith.optimize.commands import tolerance as tolerance_commands
+from tunnelsmith.optimize.model import growth
+from tunnelsmith.optimize.model import robust
+from tunnelsmith.optimize.results import tolerance as tolerance_results
+from tunnelsmith.optimize.errors import InputError
+from tunnelsmith.optimize.model.stack import DesignBatch, monolayer_nm, nominal_batch
+from tunnelsmith.physics import materials
+from tunnelsmith.physics.constants import HBAR2_2M0_eV_nm2
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -114,7 +116,7 @@ def write(tmp_path: Path, text: str, name: str = "stack.toml", extra: str = "") 
 
 
 def load(tmp_path: Path, text: str, extra: str = "", name: str = "stack.toml"):
-    return spec_module.load(write(tmp_path, text, name, extra))
+    return reader.load(write(tmp_path, text, name, extra))
 
 
 def tolerance_table(thickness_sigma_ml=0.5, growth_rate_sigma=0.01, fraction_sigma=0.005, samples=500, seed=0):
@@ -134,9 +136,9 @@ def window(metric: str, lo: float, hi: float) -> str:
 def test_same_seed_same_samples_and_different_seed_different(tmp_path):
     spec = load(tmp_path, THREE_ALLOYS, tolerance_table(thickness_sigma_ml=1.0))
     batch = nominal_batch(spec)
-    first = tolerance.draw_growth_errors(batch, spec, 50, np.random.default_rng(7))
-    again = tolerance.draw_growth_errors(batch, spec, 50, np.random.default_rng(7))
-    other = tolerance.draw_growth_errors(batch, spec, 50, np.random.default_rng(8))
+    first = growth.draw_growth_errors(batch, spec, 50, np.random.default_rng(7))
+    again = growth.draw_growth_errors(batch, spec, 50, np.random.default_rng(7))
+    other = growth.draw_growth_errors(batch, spec, 50, np.random.default_rng(8))
     np.testing.assert_array_equal(first.batch.thickness_nm, again.batch.thickness_nm)
     np.testing.assert_array_equal(first.batch.fraction, again.batch.fraction)
     np.testing.assert_array_equal(first.growth_rate_factor, again.growth_rate_factor)
@@ -150,13 +152,13 @@ def test_study_uses_the_tolerance_seed(tmp_path, monkeypatch):
     spec = load(tmp_path, THREE_ALLOYS, tolerance_table(seed=3))
     batch = nominal_batch(spec)
     drawn = []
-    monkeypatch.setattr(tolerance, "monolayer_sensitivity", lambda *a: (np.zeros((0, 5)), {}))
-    monkeypatch.setattr(tolerance, "evaluate_designs", lambda spec, b, requests, **k: drawn.append(b) or ({}, {}))
-    tolerance.run_study(spec, batch, samples=20, requests=[])
-    tolerance.run_study(spec, batch, samples=20, requests=[])
+    monkeypatch.setattr(tolerance_results, "monolayer_sensitivity", lambda *a: (np.zeros((0, 5)), {}))
+    monkeypatch.setattr(tolerance_results, "evaluate_designs", lambda spec, b, requests, **k: drawn.append(b) or ({}, {}))
+    tolerance_results.run_study(spec, batch, samples=20, requests=[])
+    tolerance_results.run_study(spec, batch, samples=20, requests=[])
     np.testing.assert_array_equal(drawn[0].thickness_nm, drawn[1].thickness_nm)
     reseeded = load(tmp_path, THREE_ALLOYS, tolerance_table(seed=4), name="other.toml")
-    tolerance.run_study(reseeded, batch, samples=20, requests=[])
+    tolerance_results.run_study(reseeded, batch, samples=20, requests=[])
     assert not np.array_equal(drawn[0].thickness_nm, drawn[2].thickness_nm)
 
 
@@ -164,7 +166,7 @@ def test_interface_steps_are_whole_monolayers_independent_per_layer(tmp_path):
     spec = load(tmp_path, THREE_ALLOYS, tolerance_table(growth_rate_sigma=0.0, fraction_sigma=0.0))
     batch = nominal_batch(spec)
     n = 20000
-    grown = tolerance.perturb(batch, spec, n, np.random.default_rng(1))
+    grown = growth.perturb(batch, spec, n, np.random.default_rng(1))
     layer_ml = monolayer_nm(batch, spec.temperature_K)[0]
     steps = (grown.thickness_nm - batch.thickness_nm) / layer_ml
     # Layer "a" is one monolayer thick and gets clipped at zero; check the others.
@@ -187,7 +189,7 @@ def test_growth_rate_factor_scales_every_layer_of_a_sample(tmp_path):
     spec = load(tmp_path, THREE_ALLOYS, tolerance_table(thickness_sigma_ml=0.0, growth_rate_sigma=0.02,
                                                         fraction_sigma=0.0))
     batch = nominal_batch(spec)
-    errors = tolerance.draw_growth_errors(batch, spec, 4000, np.random.default_rng(2))
+    errors = growth.draw_growth_errors(batch, spec, 4000, np.random.default_rng(2))
     ratio = errors.batch.thickness_nm / batch.thickness_nm
     np.testing.assert_allclose(ratio, np.repeat(ratio[:, :1], 5, axis=1), rtol=1e-12)
     np.testing.assert_allclose(ratio[:, 0], errors.growth_rate_factor, rtol=1e-12)
@@ -197,7 +199,7 @@ def test_growth_rate_factor_scales_every_layer_of_a_sample(tmp_path):
 def test_thicknesses_never_negative(tmp_path):
     spec = load(tmp_path, THREE_ALLOYS, tolerance_table(thickness_sigma_ml=3.0, growth_rate_sigma=0.3))
     batch = nominal_batch(spec)
-    grown = tolerance.perturb(batch, spec, 5000, np.random.default_rng(3))
+    grown = growth.perturb(batch, spec, 5000, np.random.default_rng(3))
     assert np.all(grown.thickness_nm >= 0.0)
     assert np.any(grown.thickness_nm[:, 0] == 0.0)  # the clip was needed, not vacuous
 
@@ -205,7 +207,7 @@ def test_thicknesses_never_negative(tmp_path):
 def test_alloy_shift_is_shared_by_layers_and_contacts_of_one_alloy(tmp_path):
     spec = load(tmp_path, THREE_ALLOYS, tolerance_table(fraction_sigma=0.01))
     batch = nominal_batch(spec)
-    errors = tolerance.draw_growth_errors(batch, spec, 3000, np.random.default_rng(4))
+    errors = growth.draw_growth_errors(batch, spec, 3000, np.random.default_rng(4))
     shift = errors.batch.fraction - batch.fraction
     # Layers a, c, e are AlGaAs (x = 0.3, 0.4, 0.4): one shift per sample.
     np.testing.assert_allclose(shift[:, 0], shift[:, 2], atol=1e-12)
@@ -224,7 +226,7 @@ def test_fraction_is_clipped_to_unit_interval(tmp_path):
     text = THREE_ALLOYS.replace("Al0.3Ga0.7As", "GaAs").replace('material = "Al0.4Ga0.6As"',
                                                                  'material = "AlGaAs"\nfraction = 0.99')
     spec = load(tmp_path, text, tolerance_table(fraction_sigma=0.05))
-    grown = tolerance.perturb(nominal_batch(spec), spec, 2000, np.random.default_rng(5))
+    grown = growth.perturb(nominal_batch(spec), spec, 2000, np.random.default_rng(5))
     column = grown.fraction[:, 2]
     assert column.max() == 1.0 and column.min() >= 0.0
 
@@ -235,7 +237,7 @@ def test_batches_are_design_major(tmp_path):
     one = nominal_batch(spec)
     two = DesignBatch(one.layer_names, np.repeat(one.base, 2, axis=0), np.repeat(one.fraction, 2, axis=0),
                       one.thickness_nm * np.array([[1.0], [2.0]]))
-    grown = tolerance.perturb(two, spec, 3, np.random.default_rng(0))
+    grown = growth.perturb(two, spec, 3, np.random.default_rng(0))
     np.testing.assert_allclose(grown.thickness_nm, np.repeat(two.thickness_nm, 3, axis=0))
 
 
@@ -244,7 +246,7 @@ def test_wilson_interval_matches_published_examples():
     # 81/263 -> 0.2553-0.3662, 15/148 -> 0.0624-0.1605, 0/20 -> 0-0.1611, 1/29 -> 0.0061-0.1718.
     for (k, n), expected in {(81, 263): (0.2553, 0.3662), (15, 148): (0.0624, 0.1605),
                              (0, 20): (0.0, 0.1611), (1, 29): (0.0061, 0.1718)}.items():
-        np.testing.assert_allclose(tolerance.wilson_interval(k, n), expected, atol=6e-5)
+        np.testing.assert_allclose(growth.wilson_interval(k, n), expected, atol=6e-5)
 
 
 # --------------------------------------------------------------------------------------
@@ -253,9 +255,9 @@ def test_wilson_interval_matches_published_examples():
 
 
 def direct_sampling(n_samples: int, seed: int, fraction_sigma: float):
-    """Grow and evaluate the InP double barrier without optimize.stack or optimize.tolerance."""
-    from physics.device import Device
-    from physics.metrics import MetricRequest, evaluate
+    """Grow and evaluate the InP double barrier without tunnelsmith.optimize.model.stack or optimize.tolerance."""
+    from tunnelsmith.physics.device import Device
+    from tunnelsmith.physics.metrics import MetricRequest, evaluate
 
     rng = np.random.default_rng(seed)
     temperature = 300.0
@@ -287,12 +289,12 @@ def test_monte_carlo_agrees_with_direct_sampling(tmp_path):
     sigma_x = 0.01  # larger than the default so that the shared composition shift matters
     spec = load(tmp_path, INP_DOUBLE_BARRIER, tolerance_table(fraction_sigma=sigma_x, seed=11))
     batch = nominal_batch(spec)
-    nominal = tolerance.monolayer_sensitivity(spec, batch, tolerance.metric_requests(spec))[1]
+    nominal = growth.monolayer_sensitivity(spec, batch, growth.metric_requests(spec))[1]
     centre = nominal["resonance_energy_eV"]
     lo, hi = centre - 0.004, centre + 0.006
     spec = load(tmp_path, INP_DOUBLE_BARRIER,
                 tolerance_table(fraction_sigma=sigma_x, seed=11) + window("resonance_energy_eV", lo, hi))
-    study = tolerance.run_study(spec, batch, samples=n)
+    study = tolerance_results.run_study(spec, batch, samples=n)
     tool = study.values["resonance_energy_eV"]
     direct = direct_sampling(n, seed=12, fraction_sigma=sigma_x)
     assert np.all(np.isfinite(tool)) and np.all(np.isfinite(direct))
@@ -306,7 +308,7 @@ def test_monte_carlo_agrees_with_direct_sampling(tmp_path):
         return x.std() * math.sqrt((np.mean(z**4) - 1.0) / (4.0 * n))
     assert abs(s_tool - s_direct) < 4.0 * math.hypot(std_error(tool), std_error(direct)), (s_tool, s_direct)
 
-    yield_tool = tolerance.window_yields(study)["all"][0] / n
+    yield_tool = tolerance_results.window_yields(study)["all"][0] / n
     yield_direct = np.mean((direct >= lo) & (direct <= hi))
     pooled = 0.5 * (yield_tool + yield_direct)
     assert 0.1 < pooled < 0.9
@@ -316,11 +318,11 @@ def test_monte_carlo_agrees_with_direct_sampling(tmp_path):
 def test_zero_sigmas_give_the_nominal_pass_or_fail(tmp_path):
     spec = load(tmp_path, INP_DOUBLE_BARRIER)
     batch = nominal_batch(spec)
-    centre = tolerance.monolayer_sensitivity(spec, batch, tolerance.metric_requests(spec))[1]["resonance_energy_eV"]
+    centre = growth.monolayer_sensitivity(spec, batch, growth.metric_requests(spec))[1]["resonance_energy_eV"]
     for lo, hi, expected in ((centre - 0.01, centre + 0.01, 1.0), (centre + 0.001, centre + 0.01, 0.0)):
         spec = load(tmp_path, INP_DOUBLE_BARRIER, tolerance_table(0.0, 0.0, 0.0) + window("resonance_energy_eV", lo, hi))
-        study = tolerance.run_study(spec, batch, samples=8)
-        inside, total = tolerance.window_yields(study)["all"]
+        study = tolerance_results.run_study(spec, batch, samples=8)
+        inside, total = tolerance_results.window_yields(study)["all"]
         assert inside / total == expected
         np.testing.assert_allclose(study.values["resonance_energy_eV"], centre, rtol=1e-12)
 
@@ -350,8 +352,8 @@ def finite_well_ground_state_eV(width_nm: float, depth_eV: float, mass_well: flo
 def test_well_sensitivity_matches_the_finite_well_equation(tmp_path):
     spec = load(tmp_path, GAAS_THICK_BARRIERS)
     batch = nominal_batch(spec)
-    requests = tolerance.metric_requests(spec)
-    sensitivity, nominal = tolerance.monolayer_sensitivity(spec, batch, requests)
+    requests = growth.metric_requests(spec)
+    sensitivity, nominal = growth.monolayer_sensitivity(spec, batch, requests)
     row = sensitivity[[r.label for r in requests].index("resonance_energy_eV")]
     well = materials.material("GaAs")
     barrier = materials.material("Al0.3Ga0.7As")
@@ -377,15 +379,15 @@ def test_well_sensitivity_matches_the_finite_well_equation(tmp_path):
 
 def test_pessimistic_order_statistics():
     samples = np.array([[5.0, 1.0, 3.0, 2.0, 4.0, 6.0, 7.0, 8.0, 9.0, 10.0]])
-    assert tolerance._order_statistic(samples, 0.1, low=True)[0] == 1.0
-    assert tolerance._order_statistic(samples, 0.2, low=True)[0] == 2.0
-    assert tolerance._order_statistic(samples, 0.2, low=False)[0] == 9.0
+    assert robust._order_statistic(samples, 0.1, low=True)[0] == 1.0
+    assert robust._order_statistic(samples, 0.2, low=True)[0] == 2.0
+    assert robust._order_statistic(samples, 0.2, low=False)[0] == 9.0
     # An undefined sample ranks worst: tolerated up to a share q, then the value is undefined.
     one_bad = np.where(samples == 5.0, np.nan, samples)
-    assert tolerance._order_statistic(one_bad, 0.2, low=True)[0] == 1.0
-    assert tolerance._order_statistic(one_bad, 0.2, low=False)[0] == 10.0
+    assert robust._order_statistic(one_bad, 0.2, low=True)[0] == 1.0
+    assert robust._order_statistic(one_bad, 0.2, low=False)[0] == 10.0
     two_bad = np.where(samples <= 2.0, np.nan, samples)
-    assert np.isnan(tolerance._order_statistic(two_bad, 0.1, low=True)[0])
+    assert np.isnan(robust._order_statistic(two_bad, 0.1, low=True)[0])
 
 
 ROBUST_CAMPAIGN = """
@@ -434,7 +436,7 @@ def test_robust_values_prefer_the_design_with_the_smaller_spread(tmp_path):
     layer_ml = monolayer_nm(template, 300.0)[0]
     thickness = np.array([[14, 16, 14], [14, 26, 14]]) * layer_ml
     batch = DesignBatch(template.layer_names, np.repeat(template.base, 2, axis=0), np.repeat(template.fraction, 2, axis=0), thickness)
-    values, _ = tolerance.robust_metric_values(probe, batch, np.random.default_rng(0))
+    values, _ = robust.robust_metric_values(probe, batch, np.random.default_rng(0))
     narrow, wide = (float(v) for v in values["nominal_resonance_energy_eV"])
     assert narrow > wide  # the narrow well's level lies higher
     target = 0.5 * (narrow + wide)
@@ -442,7 +444,7 @@ def test_robust_values_prefer_the_design_with_the_smaller_spread(tmp_path):
     text = (ROBUST_CAMPAIGN.replace("TARGET", repr(target))
             .replace("LOW", repr(wide - 0.1 * half)).replace("HIGH", repr(wide + 0.1 * half)))
     spec = load(tmp_path, text, name="campaign.toml")
-    values, reasons = tolerance.robust_metric_values(spec, batch, np.random.default_rng(0))
+    values, reasons = robust.robust_metric_values(spec, batch, np.random.default_rng(0))
 
     nominal_error = np.abs(values["nominal_resonance_energy_eV"] - target)
     np.testing.assert_allclose(nominal_error[0], nominal_error[1], rtol=1e-9)
@@ -464,8 +466,7 @@ def test_robust_values_prefer_the_design_with_the_smaller_spread(tmp_path):
 
 
 def run_cli(*args, cwd=REPO):
-    return subprocess.run([sys.executable, "-m", "optimize.cli", "tolerance", *map(str, args)],
-                          cwd=cwd, capture_output=True, text=True, timeout=300)
+    return tunnelsmith("tolerance", *args, cwd=cwd)
 
 
 def test_command_line_writes_tolerance_file(tmp_path):
@@ -543,7 +544,7 @@ def bad_input_places(tmp_path: Path) -> dict:
 
 @pytest.mark.parametrize("arguments, words", BAD_INPUTS)
 def test_bad_input_exits_2_with_a_message(tmp_path, capsys, arguments, words):
-    from optimize.cli import main
+    from tunnelsmith.optimize.cli import main
 
     places = bad_input_places(tmp_path)
     assert main(["tolerance", *[a.format(**places) for a in arguments]]) == 2
@@ -560,4 +561,4 @@ def test_bad_input_from_the_shell_has_no_traceback(tmp_path):
 
 def test_bad_sample_count_is_an_input_error(tmp_path):
     with pytest.raises(InputError):
-        tolerance.run_tolerance(write(tmp_path, INP_DOUBLE_BARRIER), samples=0, out_dir=tmp_path, quiet=True)
+        tolerance_commands.run_tolerance(write(tmp_path, INP_DOUBLE_BARRIER), samples=0, out_dir=tmp_path, quiet=True)

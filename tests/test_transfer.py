@@ -29,8 +29,8 @@ from hypothesis import strategies as st
 from scipy import special
 from scipy.integrate import solve_ivp
 
-from physics.constants import HBAR2_2M0_eV_nm2
-from physics.transfer import (
+from tunnelsmith.physics.constants import HBAR2_2M0_eV_nm2
+from tunnelsmith.physics.transfer import (
     BAND_EDGE_NUDGE_eV,
     log10_transmission,
     scattering,

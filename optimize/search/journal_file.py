@@ -26,7 +26,7 @@ from typing import Any
 
 from optuna.storages.journal import JournalFileBackend
 
-from optimize.errors import InputError, StorageWriteError
+from tunnelsmith.optimize.errors import InputError, StorageWriteError
 
 TORN_SUFFIX = ".torn"
 _CHUNK_BYTES = 1 << 16

@@ -1,24 +1,20 @@
-"""``tunnelsmith solve``: everything about one stack, stored as ``solution.nc``.
+"""The full solution of one stack as an xarray Dataset (``solution.nc``).
 
-Flow: stack file → :class:`~optimize.stack.DesignBatch` of one design → Device →
-physics (biased profiles, transmission at every bias, quasi-bound levels, I–V,
-figures of merit) → one xarray Dataset → netCDF → plots drawn from the Dataset.
+Flow: stack spec → one design → Device → physics (biased profiles, transmission at
+every bias, quasi-bound levels, I–V, figures of merit) → one Dataset.
 """
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 import xarray as xr
+from tunnelsmith.optimize.io import netcdf_name, provenance_attrs
+from tunnelsmith.optimize.model.stack import nominal_batch, to_device
+from tunnelsmith.physics import metrics as metrics_module
+from tunnelsmith.physics.profile import biased_profile, interface_positions_nm
+from tunnelsmith.physics.resonance import closed_box_states, find_resonances
+from tunnelsmith.physics.transfer import scattering
 
-from optimize import spec as spec_module
-from optimize.io import MODEL_CAUTION, netcdf_name, provenance_attrs, write_netcdf
-from optimize.stack import nominal_batch, to_device
-from physics import metrics as metrics_module
-from physics.profile import biased_profile, interface_positions_nm
-from physics.resonance import closed_box_states, find_resonances
-from physics.transfer import scattering
 
 #: Emitter and collector are drawn this far beyond the layers in band diagrams (nm).
 CONTACT_MARGIN_nm = 5.0
@@ -156,23 +152,3 @@ def metrics_table(dataset: xr.Dataset) -> str:
             text = f"{value:.4g}" if np.isfinite(value) else f"undefined ({variable.attrs.get('undefined_because', '')})"
             rows.append(f"  {name:<26} {text:>14}  {variable.attrs.get('units', '')}")
     return "\n".join(rows)
-
-
-def run_solve(stack_path: Path, *, out_dir: Path | None = None) -> int:
-    """Entry point of ``tunnelsmith solve``; returns the exit status."""
-    spec = spec_module.load(stack_path)
-    for warning in spec.warnings:
-        print(f"warning: {warning}")
-    out_dir = Path(out_dir) if out_dir is not None else Path("runs") / Path(stack_path).stem
-    dataset = solve_dataset(spec)
-    path = write_netcdf(dataset, out_dir / "solution.nc")
-    from optimize.plots import plot_solution
-
-    figures = plot_solution(dataset, out_dir)
-    print(f"tunnelsmith solve: {spec.path}")
-    print(metrics_table(dataset))
-    print(f"\nsolution: {path}")
-    for figure in figures:
-        print(f"plot:     {figure}")
-    print(f"\nnote: {MODEL_CAUTION}")
-    return 0

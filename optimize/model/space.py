@@ -1,6 +1,6 @@
 """Search space of a campaign: Optuna distributions and trial parameters → designs.
 
-Every independent searched value of a campaign (:func:`optimize.spec.search_dimensions`)
+Every independent searched value of a campaign (:func:`tunnelsmith.optimize.inputs.dimensions.search_dimensions`)
 is one Optuna parameter named ``"<layer>.<parameter>"``:
 
 =====================  ========================================================
@@ -19,7 +19,7 @@ a name with its composition written out (``"Al0.3Ga0.7As"``) keeps that composit
 
 A thickness in monolayers becomes nm through the monolayer of the material actually
 chosen for that design (half its cubic lattice constant, growth on (001);
-:func:`optimize.stack.thickness_from_monolayers`), so the same parameter value means a
+:func:`tunnelsmith.optimize.model.stack.thickness_from_monolayers`), so the same parameter value means a
 slightly different thickness in InAs than in In0.53Ga0.47As.
 """
 
@@ -33,9 +33,10 @@ from typing import Any
 import numpy as np
 from optuna.distributions import BaseDistribution, CategoricalDistribution, FloatDistribution, IntDistribution
 
-from optimize.spec import Choices, FloatRange, IntRange, design_count, search_dimensions
-from optimize.stack import DesignBatch, split_material, thickness_from_monolayers
-from physics import materials
+from tunnelsmith.optimize.inputs.schema import Choices, FloatRange, IntRange
+from tunnelsmith.optimize.inputs.dimensions import design_count, search_dimensions
+from tunnelsmith.optimize.model.stack import DesignBatch, split_material, thickness_from_monolayers
+from tunnelsmith.physics import materials
 
 __all__ = ["parameter_name", "distributions", "suggest", "batch_from_params", "space_size"]
 
@@ -105,7 +106,7 @@ def batch_from_params(spec, params: Sequence[Mapping[str, Any]]) -> DesignBatch:
 
     Parameters
     ----------
-    spec : optimize.spec.StackSpec
+    spec : tunnelsmith.optimize.inputs.schema.StackSpec
     params : sequence of dict
         Parameter name → value, as ``trial.params``; every searched parameter present.
 

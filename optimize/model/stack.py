@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from physics import materials
-from physics.device import Device
+from tunnelsmith.physics import materials
+from tunnelsmith.physics.device import Device
 
 
 @dataclass(frozen=True)
@@ -105,7 +105,7 @@ def to_device(spec, batch: DesignBatch) -> Device:
 
     Parameters
     ----------
-    spec : optimize.spec.StackSpec
+    spec : tunnelsmith.optimize.inputs.schema.StackSpec
         Supplies the contacts, temperature, model options, user materials and
         per-layer optical potentials.
     batch : DesignBatch
@@ -138,10 +138,10 @@ def to_device(spec, batch: DesignBatch) -> Device:
 def nominal_batch(spec) -> DesignBatch:
     """The single design of a stack file whose values are all fixed.
 
-    Ties are already resolved by :func:`optimize.spec.load` (a tied layer carries
+    Ties are already resolved by :func:`tunnelsmith.optimize.inputs.reader.load` (a tied layer carries
     copies of the values of the layer it names).
     """
-    from optimize.errors import InputError
+    from tunnelsmith.optimize.errors import InputError
 
     base, fraction, thickness_nm = [], [], []
     for layer in spec.layers:

@@ -51,146 +51,33 @@ Global attributes: ``campaign_toml``, ``software_version``, ``created_utc``,
 from __future__ import annotations
 
 import math
-import sys
 import warnings
-from pathlib import Path
-
 import numpy as np
 import xarray as xr
 from optuna.trial import FrozenTrial, TrialState
+from tunnelsmith.optimize.model import objectives as objectives_module
+from tunnelsmith.optimize.io import netcdf_name
+from tunnelsmith.physics.metrics import SWEEP_METRICS
+from tunnelsmith.optimize.search.pareto import hypervolume, merge_front, nondominated_mask
 
-from optimize import objectives as objectives_module
-from optimize.errors import InputError
-from optimize.io import netcdf_name
-from physics.metrics import SWEEP_METRICS
-
-__all__ = [
-    "HYPERVOLUME_REFERENCE",
-    "build_datasets",
-    "hypervolume",
-    "netcdf_name",
-    "merge_front",
-    "nondominated_mask",
-    "rebuild_front",
-    "summary_table",
-    "write_outputs",
-]
 
 #: Reference point of the normalised hypervolume, in every objective.
 HYPERVOLUME_REFERENCE = 1.1
+
+
 #: Points of the hypervolume history in trials.nc.
 HISTORY_POINTS = 200
+
+
 #: Front designs re-evaluated per physics call (curves for front.nc).
 _CURVE_CHUNK = 64
+
+
 #: Front designs listed in the terminal summary.
 SUMMARY_DESIGNS = 10
 
 
 _LOST_WORKER = "abandoned: its worker stopped responding (the design was retried)"
-
-
-# --------------------------------------------------------------------------------------
-# Dominance and hypervolume
-# --------------------------------------------------------------------------------------
-
-
-def nondominated_mask(points: np.ndarray, *, chunk: int = 1024) -> np.ndarray:
-    """Which points no other point dominates (all objectives minimised).
-
-    ``a`` dominates ``b`` when ``a <= b`` in every objective and ``a < b`` in one.
-    Equal points do not dominate each other: duplicates are all kept. Rows with a
-    non-finite value are never on the front.
-
-    Parameters
-    ----------
-    points : ndarray, shape (n, m)
-
-    Returns
-    -------
-    ndarray of bool, shape (n,)
-    """
-    points = np.asarray(points, dtype=float)
-    n = len(points)
-    keep = np.all(np.isfinite(points), axis=1) if n else np.zeros(0, bool)
-    candidates = points[keep]
-    if len(candidates) < 2:
-        return keep
-    dominated = np.zeros(len(candidates), bool)
-    for start in range(0, len(candidates), chunk):
-        block = candidates[start:start + chunk]
-        no_worse = np.all(candidates[:, None, :] <= block[None, :, :], axis=-1)
-        better = np.any(candidates[:, None, :] < block[None, :, :], axis=-1)
-        dominated[start:start + chunk] = np.any(no_worse & better, axis=0)
-    keep[np.flatnonzero(keep)[dominated]] = False
-    return keep
-
-
-def _dominated_by(reference: np.ndarray, points: np.ndarray) -> np.ndarray:
-    """Which ``points`` some row of ``reference`` dominates, shape (len(points),)."""
-    if len(reference) == 0 or len(points) == 0:
-        return np.zeros(len(points), bool)
-    no_worse = np.all(reference[:, None, :] <= points[None, :, :], axis=-1)
-    better = np.any(reference[:, None, :] < points[None, :, :], axis=-1)
-    return np.any(no_worse & better, axis=0)
-
-
-def merge_front(front: np.ndarray, new: np.ndarray) -> np.ndarray:
-    """The non-dominated set of ``front ∪ new`` without repeated points, given such a ``front``.
-
-    Costs ``O((len(front) + len(new)) · len(new))`` comparisons instead of the square of
-    the union: the way a front grows batch by batch.
-    """
-    new = np.asarray(new, dtype=float).reshape(-1, front.shape[1])
-    new = np.unique(new[nondominated_mask(new)], axis=0)
-    repeated = np.any(np.all(front[:, None, :] == new[None, :, :], axis=-1), axis=0)
-    new = new[~_dominated_by(front, new) & ~repeated]
-    return np.concatenate([front[~_dominated_by(new, front)], new])
-
-
-def _hypervolume_2d(points: np.ndarray, reference: np.ndarray) -> float:
-    order = np.lexsort((points[:, 1], points[:, 0]))
-    x, y = points[order, 0], points[order, 1]
-    best_y = np.minimum.accumulate(y)
-    previous = np.concatenate([[reference[1]], best_y[:-1]])
-    return float(np.sum((reference[0] - x) * np.clip(previous - best_y, 0.0, None)))
-
-
-def hypervolume(points: np.ndarray, reference) -> float:
-    """Volume dominated by ``points`` and bounded by ``reference`` (all minimised).
-
-    Exact: a sweep for two objectives, slicing along the last objective above that.
-    Points not strictly better than the reference in every objective add nothing.
-
-    Parameters
-    ----------
-    points : ndarray, shape (n, m)
-    reference : array_like, shape (m,)
-    """
-    points = np.asarray(points, dtype=float)
-    reference = np.broadcast_to(np.asarray(reference, dtype=float), points.shape[-1:])
-    points = points[np.all(points < reference, axis=1)] if len(points) else points
-    if len(points) == 0:
-        return 0.0
-    m = points.shape[1]
-    if m == 1:
-        return float(reference[0] - points[:, 0].min())
-    if m == 2:
-        return _hypervolume_2d(points, reference)  # the sweep ignores dominated points itself
-    points = points[nondominated_mask(points)]
-    order = np.argsort(points[:, -1], kind="stable")
-    points = points[order]
-    levels = np.append(points[:, -1], reference[-1])
-    volume = 0.0
-    for k in range(len(points)):
-        depth = levels[k + 1] - levels[k]
-        if depth > 0:
-            volume += depth * hypervolume(points[: k + 1, :-1], reference[:-1])
-    return volume
-
-
-# --------------------------------------------------------------------------------------
-# Names and units
-# --------------------------------------------------------------------------------------
 
 
 _UNIT_SUFFIXES = (("_A_cm2", "A cm-2"), ("_W_cm2", "W cm-2"), ("_eV", "eV"), ("_nm", "nm"), ("_V", "V"))
@@ -200,7 +87,7 @@ def metric_units(label: str) -> str:
     """Units of a metric (from the catalogue, else from its name's suffix)."""
     name = label.removeprefix("nominal_").partition("@")[0]
     try:
-        from physics.metrics import CATALOGUE
+        from tunnelsmith.physics.metrics import CATALOGUE
 
         if name in CATALOGUE:
             return _cf_units(CATALOGUE[name].units)
@@ -221,7 +108,7 @@ def _cf_units(units: str) -> str:
 def _metric_long_name(label: str) -> str:
     name = label.removeprefix("nominal_").partition("@")[0]
     try:
-        from physics.metrics import CATALOGUE
+        from tunnelsmith.physics.metrics import CATALOGUE
 
         if name in CATALOGUE:
             long_name = CATALOGUE[name].long_name
@@ -239,20 +126,15 @@ def _objective_units(objective) -> str:
     return metric_units(objective.metric)
 
 
-# --------------------------------------------------------------------------------------
-# Reading the trials
-# --------------------------------------------------------------------------------------
-
-
 def _float(value) -> float:
     return np.nan if value is None else float(value)
 
 
 def _design_arrays(spec, trials: list[FrozenTrial]):
     """(material names, fraction, thickness_nm, monolayers), each (n, L), from the storage."""
-    from optimize import space
-    from optimize.campaign import ATTR_DESIGN
-    from optimize.stack import material_arrays, split_material
+    from tunnelsmith.optimize.model import space
+    from tunnelsmith.optimize.search.records import ATTR_DESIGN
+    from tunnelsmith.optimize.model.stack import material_arrays, split_material
 
     n, n_layers = len(trials), len(spec.layers)
     material = np.full((n, n_layers), "", dtype=object)
@@ -295,7 +177,7 @@ def _design_arrays(spec, trials: list[FrozenTrial]):
 
 
 def _failure_text(trial: FrozenTrial) -> str:
-    from optimize.campaign import ATTR_FAILURE
+    from tunnelsmith.optimize.search.records import ATTR_FAILURE
 
     failure = trial.user_attrs.get(ATTR_FAILURE)
     if failure:
@@ -311,7 +193,7 @@ def _minimised(spec, values: np.ndarray) -> np.ndarray:
 
 
 def _metric_labels(spec, trials: list[FrozenTrial]) -> list[str]:
-    from optimize.campaign import ATTR_METRICS
+    from tunnelsmith.optimize.search.records import ATTR_METRICS
 
     labels = [r.label for r in spec.metric_requests]
     seen = set(labels)
@@ -327,7 +209,7 @@ class _Table:
     """Every trial of a study as arrays (rows in trial-number order)."""
 
     def __init__(self, study, spec) -> None:
-        from optimize.campaign import ATTR_METRICS, ATTR_RETRY_OF, counts_toward_budget
+        from tunnelsmith.optimize.search.records import ATTR_METRICS, ATTR_RETRY_OF, counts_toward_budget
 
         trials = sorted(study.get_trials(deepcopy=False), key=lambda t: t.number)
         self.trials = trials
@@ -402,11 +284,6 @@ class _Table:
         return marks.astype(np.int64), np.array(volumes)
 
 
-# --------------------------------------------------------------------------------------
-# Datasets
-# --------------------------------------------------------------------------------------
-
-
 def _attrs(units: str, long_name: str, **extra) -> dict:
     return {"units": units, "long_name": long_name, **extra}
 
@@ -467,8 +344,8 @@ def _objective_value_attrs(spec) -> dict:
 
 
 def _global_attrs(spec, study, table: _Table, storage_url: str | None) -> dict:
-    from optimize.campaign import redact_url
-    from optimize.io import provenance_attrs
+    from tunnelsmith.optimize.search.storage import redact_url
+    from tunnelsmith.optimize.io import provenance_attrs
 
     attrs = provenance_attrs(spec.text)
     attrs.update({
@@ -491,8 +368,8 @@ def _global_attrs(spec, study, table: _Table, storage_url: str | None) -> dict:
 
 def _front_curves(spec, table: _Table, rows: np.ndarray):
     """Zero-bias transmission (n, nE) and current density (n, nV) or None, recomputed."""
-    from optimize.stack import DesignBatch, split_material, to_device
-    from physics.metrics import evaluate
+    from tunnelsmith.optimize.model.stack import DesignBatch, split_material, to_device
+    from tunnelsmith.physics.metrics import evaluate
 
     n_energy = spec.energy.points
     transmission = np.full((len(rows), n_energy), np.nan)
@@ -508,7 +385,7 @@ def _front_curves(spec, table: _Table, rows: np.ndarray):
     if spec.needs_iv and not any(r.name in SWEEP_METRICS for r in requests):
         # Currents at a few stated biases only (leakage): ask for the whole sweep, whose
         # curve the front file carries.
-        from physics.metrics import MetricRequest
+        from tunnelsmith.physics.metrics import MetricRequest
 
         requests.append(MetricRequest("peak_current_A_cm2"))
     for start in range(0, len(rows), _CURVE_CHUNK):
@@ -529,7 +406,7 @@ def build_datasets(study, spec, *, storage_url: str | None = None, curves: bool 
     Parameters
     ----------
     study : optuna.Study
-    spec : optimize.spec.StackSpec
+    spec : tunnelsmith.optimize.inputs.schema.StackSpec
         The campaign the study was run with.
     storage_url : str, optional
         Recorded (password removed) in the attributes.
@@ -595,11 +472,6 @@ def build_datasets(study, spec, *, storage_url: str | None = None, curves: bool 
     return front_ds, trials_ds
 
 
-# --------------------------------------------------------------------------------------
-# Outputs
-# --------------------------------------------------------------------------------------
-
-
 def _ranking(spec, front_ds: xr.Dataset) -> np.ndarray:
     if front_ds.sizes.get("design", 0) == 0:
         return np.zeros(0, int)
@@ -645,84 +517,3 @@ def summary_table(spec, front_ds: xr.Dataset, trials_ds: xr.Dataset | None = Non
     if n_front > len(shown):
         lines.append(f"  ... {n_front - len(shown)} more designs in front.nc")
     return "\n".join(lines)
-
-
-def write_outputs(study, spec, run_dir, *, storage_url: str | None = None, quiet: bool = False) -> list[Path]:
-    """Write ``front.nc``, ``trials.nc`` and the plots into ``run_dir``; print the summary.
-
-    Every file is written under a temporary name and renamed into place.
-    """
-    from optimize.io import write_netcdf
-
-    run_dir = Path(run_dir)
-    front_ds, trials_ds = build_datasets(study, spec, storage_url=storage_url)
-    paths = [write_netcdf(front_ds, run_dir / "front.nc"), write_netcdf(trials_ds, run_dir / "trials.nc")]
-    try:
-        from optimize.plots import plot_campaign
-    except ImportError:
-        plot_campaign = None
-    if plot_campaign is not None:
-        try:
-            paths += list(plot_campaign(front_ds, trials_ds, run_dir))
-        except Exception as error:  # a figure must not cost the campaign its results
-            print(f"warning: plots not drawn ({type(error).__name__}: {error})", file=sys.stderr)
-    if not quiet:
-        print(summary_table(spec, front_ds, trials_ds))
-    return paths
-
-
-def _find_study_name(run_dir: Path, storage) -> str:
-    import optuna
-
-    names = optuna.study.get_all_study_names(storage)
-    if len(names) == 1:
-        return names[0]
-    if run_dir.name in names:
-        return run_dir.name
-    listing = ", ".join(names) if names else "none"
-    raise InputError(str(run_dir), None, f"cannot tell which campaign of the storage belongs here (studies: {listing})",
-                     f"copy the campaign file to {run_dir / 'campaign.toml'}, or name the run directory "
-                     "after the campaign")
-
-
-def rebuild_front(run_dir, storage: str | None = None, quiet: bool = False) -> int:
-    """Rebuild ``front.nc``, ``trials.nc`` and plots of a run from its storage alone.
-
-    Reads only: safe while workers are still adding trials. The campaign text comes
-    from the study (the copy ``RUN_DIR/campaign.toml`` is refreshed from it).
-
-    Returns
-    -------
-    int
-        Exit status 0.
-    """
-    import os
-
-    import optuna
-
-    from optimize.campaign import CAMPAIGN_COPY, STORAGE_ENV, open_storage
-    from optimize.io import write_text
-    from optimize.spec import load
-
-    run_dir = Path(run_dir)
-    url = storage or os.environ.get(STORAGE_ENV) or None
-    if not run_dir.is_dir():
-        if url is None:
-            raise InputError(str(run_dir), None, "no such run directory",
-                             "give the directory `tunnelsmith optimize` wrote (default runs/<campaign name>/)")
-        run_dir.mkdir(parents=True)
-    optuna.logging.set_verbosity(optuna.logging.WARNING)
-    store = open_storage(run_dir, url, writer=False)
-    copy = run_dir / CAMPAIGN_COPY
-    name = load(copy).name if copy.exists() else _find_study_name(run_dir, store)
-    try:
-        study = optuna.load_study(study_name=name, storage=store)
-    except KeyError:
-        raise InputError(str(run_dir), None, f'the storage holds no campaign named "{name}"',
-                         "check --storage, or the [campaign] name in campaign.toml of the run directory") from None
-    text = study.user_attrs.get("campaign_toml")
-    if text is not None and (not copy.exists() or copy.read_text(encoding="utf-8") != text):
-        write_text(copy, text)
-    spec = load(copy)
-    write_outputs(study, spec, run_dir, storage_url=url, quiet=quiet)
-    return 0

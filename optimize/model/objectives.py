@@ -6,7 +6,7 @@ It has two halves with a clean seam between them:
 * :func:`metric_values` — physics: one vectorised call for the whole batch, returning
   every requested metric (``label -> (B,)``, NaN where undefined) and why a value is
   undefined. Campaigns with ``[tolerance] robust = {...}`` get the pessimistic
-  statistic over grown variants instead (:func:`optimize.tolerance.robust_metric_values`,
+  statistic over grown variants instead (:func:`tunnelsmith.optimize.model.robust.robust_metric_values`,
   ``B x K`` designs in one call); everything downstream is unchanged.
 * :func:`objectives_from_metrics` — pure bookkeeping on those arrays.
 
@@ -130,8 +130,8 @@ def metric_values(spec, batch) -> tuple[dict[str, np.ndarray], dict[str, np.ndar
 
     Parameters
     ----------
-    spec : optimize.spec.StackSpec
-    batch : optimize.stack.DesignBatch
+    spec : tunnelsmith.optimize.inputs.schema.StackSpec
+    batch : tunnelsmith.optimize.model.stack.DesignBatch
         ``B`` designs.
 
     Returns
@@ -143,12 +143,12 @@ def metric_values(spec, batch) -> tuple[dict[str, np.ndarray], dict[str, np.ndar
     """
     tolerance = getattr(spec, "tolerance", None)
     if tolerance is not None and tolerance.robust is not None:
-        from optimize.tolerance import robust_metric_values
+        from tunnelsmith.optimize.model.robust import robust_metric_values
 
         return robust_metric_values(spec, batch)
 
-    from optimize.stack import to_device
-    from physics.metrics import evaluate
+    from tunnelsmith.optimize.model.stack import to_device
+    from tunnelsmith.physics.metrics import evaluate
 
     evaluation = evaluate(
         to_device(spec, batch), list(spec.metric_requests), energy_eV=spec.energy.values,
@@ -196,7 +196,7 @@ def objectives_from_metrics(spec, values: dict[str, np.ndarray],
 
     Parameters
     ----------
-    spec : optimize.spec.StackSpec
+    spec : tunnelsmith.optimize.inputs.schema.StackSpec
     values : dict label -> ndarray (B,)
         Must hold the label of every objective and constraint metric.
     reasons : dict label -> ndarray (B,) of str, optional

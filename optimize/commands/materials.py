@@ -1,8 +1,9 @@
-"""Plain-text tables for the terminal."""
+"""``tunnelsmith materials``: the material table with the source of every value."""
 
 from __future__ import annotations
 
-from physics import materials
+from tunnelsmith.optimize.errors import EXIT_OK, InputError
+from tunnelsmith.physics import materials
 
 
 def materials_table(temperature_K: float = 300.0) -> str:
@@ -30,3 +31,12 @@ def materials_table(temperature_K: float = 300.0) -> str:
     lines += ["", "Sources (per row: E_c, mass, gap, lattice):"]
     lines += [f"  [{number}] {text}" for text, number in sources.items()]
     return "\n".join(lines)
+
+
+def run_materials(temperature_K: float) -> int:
+    """Print the material table at ``temperature_K``; returns exit status 0."""
+    if not temperature_K > 0:
+        raise InputError("command line", "--temperature", "the temperature must be positive",
+                         "give a temperature in kelvin, e.g. --temperature 77")
+    print(materials_table(temperature_K))
+    return EXIT_OK

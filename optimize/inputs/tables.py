@@ -1,0 +1,238 @@
+"""TOML tables that answer every problem with the file, the dotted key and a fix.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from collections.abc import Iterable, Mapping
+from typing import Any
+from tunnelsmith.optimize.errors import InputError
+
+
+_MISSING = object()
+
+
+def _fmt(value: float) -> str:
+    return f"{value:g}"
+
+
+def _shown(value: Any) -> str:
+    """A value as the user wrote it, with its TOML kind."""
+    if isinstance(value, bool):
+        return f"{str(value).lower()} (a true/false value)"
+    if isinstance(value, str):
+        return f'"{value}" (a string)'
+    if isinstance(value, int):
+        return f"{value} (an integer)"
+    if isinstance(value, float):
+        return f"{value:g} (a number)"
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, list):
+        return "an array"
+    return f"{value} (a {type(value).__name__})"
+
+
+def _nearest(word: str, candidates: Iterable[str]) -> list[str]:
+    """The candidates closest to ``word`` (case-insensitive), all equally close; maybe empty."""
+    by_lower = {c.lower(): c for c in candidates}
+    matcher = difflib.SequenceMatcher(b=word.lower())
+    scored = []
+    for lower, original in by_lower.items():
+        matcher.set_seq1(lower)
+        scored.append((matcher.ratio(), original))
+    best = max((score for score, _ in scored), default=0.0)
+    if best < 0.6:
+        return []
+    return [original for score, original in scored if score == best]
+
+
+def _quoted(names: Iterable[str]) -> str:
+    return " or ".join(f'"{name}"' for name in names)
+
+
+def _rename_fix(word: str, candidates: Iterable[str], what: str) -> str:
+    candidates = list(candidates)
+    near = _nearest(word, candidates)
+    allowed = f"the {what} are {', '.join(candidates)}"
+    return f"did you mean {_quoted(near)}? ({allowed})" if near else f"use one of them: {allowed}"
+
+
+class _Table:
+    """One TOML table under a dotted key path; reads typed values or raises InputError."""
+
+    def __init__(self, file: str, path: str, data: Mapping[str, Any], allowed: Iterable[str]):
+        self.file = file
+        self.path = path
+        self.data = data
+        allowed = tuple(allowed)
+        for key in data:
+            if key not in allowed:
+                near = _nearest(key, allowed)
+                fix = (
+                    f"rename it to {_quoted(near)}"
+                    if near
+                    else f"remove it; the keys allowed here are {', '.join(allowed)}"
+                )
+                raise self.error(key, f'unknown key "{key}"', fix)
+
+    def key(self, name: str | None = None) -> str | None:
+        if name is None:
+            return self.path or None
+        return f"{self.path}.{name}" if self.path else name
+
+    def error(self, name: str | None, problem: str, fix: str) -> InputError:
+        return InputError(self.file, self.key(name), problem, fix)
+
+    def has(self, name: str) -> bool:
+        return name in self.data
+
+    def _value(self, name: str, default: Any, example: str) -> tuple[bool, Any]:
+        """``(True, raw value)`` if present, else ``(False, default)``; raises if required."""
+        if name in self.data:
+            return True, self.data[name]
+        if default is _MISSING:
+            if not self.path:
+                where = "at the top of the file"
+            elif "[" in self.path or '"' in self.path:
+                where = f"in {self.path}"  # an entry of an array of tables
+            else:
+                where = f"in [{self.path}]"
+            raise self.error(name, f"required key {name} is missing", f"add {name} = {example} {where}")
+        return False, default
+
+    def number(
+        self,
+        name: str,
+        default: Any = _MISSING,
+        *,
+        example: str,
+        above: float | None = None,
+        at_least: float | None = None,
+        at_most: float | None = None,
+    ) -> float:
+        """A finite real number, optionally bounded; integers are accepted."""
+        present, value = self._value(name, default, example)
+        if not present:
+            return value
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            fix = f"write a plain number, e.g. {name} = {example}"
+            if isinstance(value, str) and _looks_numeric(value):
+                fix = f"remove the quotes: {name} = {value.strip()}"
+            raise self.error(name, f"expected a number, got {_shown(value)}", fix)
+        if not math.isfinite(value):
+            raise self.error(
+                name,
+                f"{name} = {value} is not a finite number",
+                f"give a finite value, e.g. {name} = {example}",
+            )
+        _check_bounds(self, name, float(value), example, above, at_least, at_most)
+        return float(value)
+
+    def integer(
+        self, name: str, default: Any = _MISSING, *, example: str, at_least: int | None = None
+    ) -> int:
+        """A whole number; a float with no fractional part (``2e4``) is accepted."""
+        present, value = self._value(name, default, example)
+        if not present:
+            return value
+        if isinstance(value, float) and math.isfinite(value) and value.is_integer():
+            value = int(value)
+        if isinstance(value, bool) or not isinstance(value, int):
+            fix = f"write a whole number, e.g. {name} = {example}"
+            if isinstance(value, str) and _looks_numeric(value):
+                fix = f"remove the quotes and write a whole number, e.g. {name} = {example}"
+            raise self.error(name, f"expected a whole number, got {_shown(value)}", fix)
+        _check_bounds(self, name, value, example, None, at_least, None)
+        return value
+
+    def string(
+        self, name: str, default: Any = _MISSING, *, example: str, choices: Iterable[str] | None = None
+    ) -> str:
+        """A non-empty string, optionally one of ``choices``."""
+        present, value = self._value(name, default, example)
+        if not present:
+            return value
+        if not isinstance(value, str):
+            raise self.error(
+                name,
+                f"expected a string, got {_shown(value)}",
+                f"write it in double quotes, e.g. {name} = {example}",
+            )
+        if not value.strip():
+            raise self.error(name, f"{name} is empty", f"give a value, e.g. {name} = {example}")
+        if choices is not None and value not in choices:
+            raise self.error(
+                name, f'"{value}" is not a valid {name}', _rename_fix(value, choices, f"values of {name}")
+            )
+        return value
+
+    def boolean(self, name: str, default: Any = _MISSING, *, example: str = "true") -> bool:
+        present, value = self._value(name, default, example)
+        if present and not isinstance(value, bool):
+            raise self.error(
+                name,
+                f"expected true or false, got {_shown(value)}",
+                f"write {name} = true or {name} = false (no quotes)",
+            )
+        return value
+
+    def table(self, name: str, allowed: Iterable[str], *, example: str) -> _Table | None:
+        """A sub-table, or ``None`` when absent."""
+        if name not in self.data:
+            return None
+        value = self.data[name]
+        if not isinstance(value, dict):
+            raise self.error(
+                name, f"expected a table, got {_shown(value)}", f"write it as a table, e.g. {example}"
+            )
+        return _Table(self.file, self.key(name), value, allowed)
+
+    def tables(self, name: str, allowed: Iterable[str], *, example: str, label=None) -> list[_Table]:
+        """An array of tables (``[[name]]``); ``label(index, data)`` names each entry."""
+        if name not in self.data:
+            return []
+        value = self.data[name]
+        header = f"[[{self.key(name)}]]"
+        if not isinstance(value, list) or not all(isinstance(item, dict) for item in value):
+            raise self.error(
+                name,
+                f"expected an array of tables, got {_shown(value)}",
+                f"write each entry under its own {header} header (double brackets), e.g. {example}",
+            )
+        entries = []
+        for index, item in enumerate(value, start=1):
+            path = label(index, item) if label else f"{self.key(name)}[{index}]"
+            entries.append(_Table(self.file, path, item, allowed))
+        return entries
+
+
+def _looks_numeric(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _check_bounds(table: _Table, name: str, value: float, example: str, above, at_least, at_most) -> None:
+    if above is not None and not value > above:
+        bound = "positive" if above == 0 else f"above {_fmt(above)}"
+        raise table.error(
+            name,
+            f"{name} = {_fmt(value)} must be {bound}",
+            f"give a value above {_fmt(above)}, e.g. {name} = {example}",
+        )
+    if at_least is not None and value < at_least:
+        raise table.error(
+            name,
+            f"{name} = {_fmt(value)} is below the smallest allowed value {_fmt(at_least)}",
+            f"give a value of at least {_fmt(at_least)}, e.g. {name} = {example}",
+        )
+    if at_most is not None and value > at_most:
+        raise table.error(
+            name,
+            f"{name} = {_fmt(value)} is above the largest allowed value {_fmt(at_most)}",
+            f"give a value of at most {_fmt(at_most)}, e.g. {name} = {example}",
+        )

@@ -1,0 +1,1 @@
+"""Floor 2, from a spec to numbers: designs, search space, growth errors, objectives."""

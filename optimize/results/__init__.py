@@ -1,0 +1,1 @@
+"""Floor 4, results as xarray Datasets: front and trials, solution, tolerance study."""

@@ -1,0 +1,236 @@
+"""Workers: identity, heartbeats, recovery of stale trials, local worker processes.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import signal
+import socket
+import subprocess
+import sys
+import threading
+import time
+import warnings
+from pathlib import Path
+from typing import Any
+import numpy as np
+import optuna
+from optuna.exceptions import UpdateFinishedTrialError
+from optuna.trial import FrozenTrial, TrialState
+from tunnelsmith.optimize.search.layout import STORAGE_ENV, WORKER_INDEX_ENV
+from tunnelsmith.optimize.search.records import ATTR_RETRIES, ATTR_RETRY_OF, SYSTEM_WORKER, _BEAT_PREFIX
+from tunnelsmith.optimize.search.storage import GRACE_PERIOD_S, HEARTBEAT_INTERVAL_S, _is_rdb
+
+
+#: How often one design is retried after its worker died.
+MAX_RETRIES = 2
+
+
+def _new_worker_id() -> str:
+    return f"{socket.gethostname()}:{os.getpid()}:{os.urandom(4).hex()}"
+
+
+def _local_worker_gone(worker_id: str) -> bool:
+    """Whether ``worker_id`` (``"host:pid:token"``) names a process of this host that no longer runs."""
+    try:
+        host, pid_text, _ = worker_id.rsplit(":", 2)
+        pid = int(pid_text)
+    except ValueError:
+        return False
+    if host != socket.gethostname():
+        return False
+    if pid == os.getpid():
+        return True  # an earlier process that had our pid: not us, so gone
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True
+    except PermissionError:
+        return False
+    try:  # a zombie (exited, not yet reaped by its parent) is gone too
+        with open(f"/proc/{pid}/stat", "rb") as handle:
+            return handle.read().rsplit(b")", 1)[1].split()[0] == b"Z"
+    except (OSError, IndexError):
+        return False
+
+
+class _Heartbeat:
+    """Daemon thread recording this worker's heartbeat every :data:`HEARTBEAT_INTERVAL_S`."""
+
+    def __init__(self, storage, study_id: int, worker_id: str) -> None:
+        self._storage, self._study_id, self._worker_id = storage, study_id, worker_id
+        self._trial_ids: set[int] = set()
+        self._lock = threading.Lock()
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, name="tunnelsmith-heartbeat", daemon=True)
+
+    def start(self) -> None:
+        self.beat()
+        self._thread.start()
+
+    def stop(self) -> None:
+        self._stop.set()
+        self._thread.join(timeout=HEARTBEAT_INTERVAL_S + 5)
+
+    def track(self, trial_ids) -> None:
+        with self._lock:
+            self._trial_ids.update(trial_ids)
+
+    def untrack(self, trial_ids) -> None:
+        with self._lock:
+            self._trial_ids.difference_update(trial_ids)
+
+    def beat(self) -> None:
+        try:
+            if _is_rdb(self._storage):
+                with self._lock:
+                    ids = sorted(self._trial_ids)
+                for trial_id in ids:
+                    self._storage.record_heartbeat(trial_id)
+            else:
+                self._storage.set_study_system_attr(self._study_id, _BEAT_PREFIX + self._worker_id, time.time())
+        except Exception as error:  # a missed beat is retried; the grace period covers several
+            print(f"warning: heartbeat not recorded ({type(error).__name__}: {error})", file=sys.stderr)
+
+    def _run(self) -> None:
+        while not self._stop.wait(HEARTBEAT_INTERVAL_S):
+            self.beat()
+
+
+def _retry_stale(study, trial: FrozenTrial) -> None:
+    """Enqueue the parameters of a trial whose worker died (at most :data:`MAX_RETRIES` times)."""
+    retries = int(trial.user_attrs.get(ATTR_RETRIES, 0))
+    if retries >= MAX_RETRIES or not trial.params:
+        return
+    study.enqueue_trial(dict(trial.params), user_attrs={ATTR_RETRY_OF: trial.number, ATTR_RETRIES: retries + 1})
+
+
+def _started_s(trial: FrozenTrial) -> float:
+    return trial.datetime_start.timestamp() if trial.datetime_start is not None else time.time()
+
+
+def recover_stale_trials(study, storage, worker_id: str, trials: list[FrozenTrial]) -> int:
+    """Fail the running trials of dead workers and enqueue their parameters again.
+
+    A running trial of another worker is stale when its worker process is gone (same
+    host), when its worker has not beaten for :data:`GRACE_PERIOD_S` (journal), when no
+    worker ever claimed it within that time, or (database) when Optuna's heartbeat
+    check finds it stale. Each stale trial is failed once — a worker that loses the race
+    to fail it does not retry it — and enqueued again. Returns the number failed here.
+    """
+    now = time.time()
+    rdb = _is_rdb(storage)
+    beats = None
+    stale = []
+    for trial in trials:
+        if trial.state != TrialState.RUNNING:
+            continue
+        owner = trial.system_attrs.get(SYSTEM_WORKER)
+        if owner == worker_id:
+            continue
+        if owner is not None and _local_worker_gone(owner):
+            stale.append(trial)
+        elif owner is None:
+            if now - _started_s(trial) > GRACE_PERIOD_S:
+                stale.append(trial)
+        elif not rdb:
+            if beats is None:
+                beats = storage.get_study_system_attrs(study._study_id)
+            last = beats.get(_BEAT_PREFIX + owner, _started_s(trial))
+            if now - last > GRACE_PERIOD_S:
+                stale.append(trial)
+    failed = 0
+    for trial in stale:
+        try:
+            storage.set_trial_state_values(trial._trial_id, TrialState.FAIL)
+        except UpdateFinishedTrialError:
+            continue  # its worker finished it, or another worker failed it first
+        _retry_stale(study, trial)
+        failed += 1
+    if rdb:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            optuna.storages.fail_stale_trials(study)  # retries through the storage's callback
+    return failed
+
+
+def _worker_seed(study: optuna.Study, worker_index: int, first_number: int) -> int:
+    base = int(study.user_attrs.get("sampler_seed", 0))
+    return int(np.random.SeedSequence([base, worker_index, first_number]).generate_state(1)[0])
+
+
+def _start_workers(count: int, spec, run_dir: Path, url: str | None, budget: int,
+                   deadline: float | None) -> list[tuple[subprocess.Popen, Any]]:
+    children = []
+    for index in range(1, count):
+        command = [sys.executable, "-m", "tunnelsmith", "optimize", str(Path(spec.path).resolve()),
+                   "--out", str(run_dir.resolve()), "--trials", str(budget), "--workers", "1", "--quiet"]
+        if deadline is not None:
+            command += ["--timeout", f"{max(1.0, deadline - time.monotonic()):.0f}s"]
+        env = dict(os.environ, **{WORKER_INDEX_ENV: str(index)})
+        if url:
+            env[STORAGE_ENV] = url  # not on the command line, where `ps` would show it
+        log = open(run_dir / f"worker-{index}.log", "ab")
+        # Own session: a Ctrl-C in the terminal reaches the main process only, which
+        # then stops its workers once, cleanly.
+        process = subprocess.Popen(command, stdout=log, stderr=subprocess.STDOUT, env=env,
+                                   start_new_session=True)
+        children.append((process, log))
+    return children
+
+
+def _stop_workers(children, signum: int) -> None:
+    for process, _ in children:
+        if process.poll() is None:
+            with contextlib.suppress(ProcessLookupError):
+                process.send_signal(signum)
+
+
+def _wait_workers(children, stop: _StopRequest, forwarded: bool) -> list[int]:
+    """Wait for the worker processes; pass a stop request (first or second) on to them."""
+    codes = []
+    for process, log in children:
+        while True:
+            try:
+                codes.append(process.wait(timeout=0.5))
+                break
+            except subprocess.TimeoutExpired:
+                if stop.requested and not forwarded:
+                    _stop_workers(children, signal.SIGTERM)
+                    forwarded = True
+            except KeyboardInterrupt:
+                _stop_workers(children, signal.SIGTERM)  # a second signal: workers abandon their batches
+        log.close()
+    return codes
+
+
+class _StopRequest:
+    """SIGINT/SIGTERM: the first asks the loop to stop; a second abandons the batch."""
+
+    def __init__(self) -> None:
+        self.signal: int | None = None
+        self._previous: dict[int, Any] = {}
+
+    def install(self) -> None:
+        if threading.current_thread() is not threading.main_thread():
+            return
+        for signum in (signal.SIGINT, signal.SIGTERM):
+            self._previous[signum] = signal.signal(signum, self._handle)
+
+    def restore(self) -> None:
+        for signum, handler in self._previous.items():
+            signal.signal(signum, handler)
+        self._previous.clear()
+
+    def _handle(self, signum, frame) -> None:
+        if self.signal is None:
+            self.signal = signum
+            print(f"\n{signal.Signals(signum).name}: finishing the current batch, then writing results "
+                  "(signal again to abandon the batch)", file=sys.stderr, flush=True)
+            return
+        raise KeyboardInterrupt
+
+    @property
+    def requested(self) -> bool:
+        return self.signal is not None

@@ -1,0 +1,7 @@
+"""``python -m tunnelsmith``: the command line."""
+
+import sys
+
+from tunnelsmith.optimize.cli import main
+
+sys.exit(main())
