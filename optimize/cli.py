@@ -18,6 +18,11 @@ from tunnelsmith.optimize.version import software_version
 
 
 
+#: The longest --timeout accepted (one year): anything longer is a typo, and would
+#: overflow the deadline arithmetic.
+MAX_TIMEOUT_S = 366 * 24 * 3600.0
+
+
 def parse_duration_s(text: str) -> float:
     """``"8h"``, ``"90m"``, ``"45s"``, ``"1h30m"`` or plain seconds → seconds."""
     match = re.fullmatch(r"\s*(?:(\d+(?:\.\d+)?)h)?\s*(?:(\d+(?:\.\d+)?)m)?\s*(?:(\d+(?:\.\d+)?)s?)?\s*", text)
@@ -27,7 +32,11 @@ def parse_duration_s(text: str) -> float:
             "give hours, minutes or seconds, e.g. --timeout 8h, --timeout 90m or --timeout 1h30m",
         )
     hours, minutes, seconds = (float(g) if g else 0.0 for g in match.groups())
-    return 3600.0 * hours + 60.0 * minutes + seconds
+    total_s = 3600.0 * hours + 60.0 * minutes + seconds
+    if not total_s <= MAX_TIMEOUT_S:
+        raise InputError("command line", "--timeout", f"{text!r} is longer than a year",
+                         "give at most --timeout 8760h; without --timeout the campaign runs until its trial budget")
+    return total_s
 
 
 def _positive_int(text: str) -> int:
@@ -78,12 +87,29 @@ def build_parser() -> argparse.ArgumentParser:
     check = commands.add_parser("check", help="validate a stack or campaign file and show its search space")
     check.add_argument("file", type=Path, metavar="FILE.toml")
 
+    for command in (solve, opt, tol, check):
+        command.add_argument("--strict", action="store_true",
+                             help="treat warnings about implausible values as errors (exit 2), for scripts")
+
     materials = commands.add_parser("materials", help="the material table with the source of every value")
     materials.add_argument("--temperature", type=float, default=300.0, metavar="K")
     return parser
 
 
+def _check_out(args: argparse.Namespace) -> None:
+    out = getattr(args, "out", None)
+    if out is not None and out.exists() and not out.is_dir():
+        raise InputError("command line", "--out", f"{out} is an existing file, not a directory",
+                         "give --out a directory (it is created when missing), or move the file away")
+
+
 def _dispatch(args: argparse.Namespace) -> int:
+    _check_out(args)
+    if getattr(args, "strict", False):
+        from tunnelsmith.optimize.commands.check import refuse_warnings
+
+        refuse_warnings(getattr(args, "stack", None) or getattr(args, "campaign", None)
+                        or getattr(args, "target", None) or args.file)
     if args.command == "solve":
         from tunnelsmith.optimize.commands.solve import run_solve
 

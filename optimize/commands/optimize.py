@@ -65,7 +65,7 @@ def run_campaign(path, *, out_dir=None, trials: int | None = None, timeout_s: fl
 
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     if worker_index == 0 and not quiet:
-        for text in spec.warnings:
+        for text in spec.located_warnings:
             print(f"warning: {text}", file=sys.stderr)
     with warnings.catch_warnings():
         # Material warnings were given once above (and by `tunnelsmith check`); the

@@ -3,6 +3,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 from tunnelsmith.optimize.inputs import reader
 from tunnelsmith.optimize.io import MODEL_CAUTION, write_netcdf
@@ -12,8 +13,8 @@ from tunnelsmith.optimize.results.solution import metrics_table, solve_dataset
 def run_solve(stack_path: Path, *, out_dir: Path | None = None) -> int:
     """Entry point of ``tunnelsmith solve``; returns the exit status."""
     spec = reader.load(stack_path)
-    for warning in spec.warnings:
-        print(f"warning: {warning}")
+    for warning in spec.located_warnings:
+        print(f"warning: {warning}", file=sys.stderr)
     out_dir = Path(out_dir) if out_dir is not None else Path("runs") / Path(stack_path).stem
     dataset = solve_dataset(spec)
     path = write_netcdf(dataset, out_dir / "solution.nc")

@@ -152,7 +152,7 @@ def run_tolerance(target, *, design: int | None = None, samples: int | None = No
         spec, nominal = _load_stack(target, design, storage)
         out = Path(out_dir) if out_dir is not None else Path("runs") / target.stem
         source = str(target)
-    for warning in getattr(spec, "warnings", ()):
+    for warning in getattr(spec, "located_warnings", ()):
         print(f"warning: {warning}", file=sys.stderr)
 
     progress = _ProgressBar("growth samples", quiet)

@@ -3,9 +3,8 @@
 
 from __future__ import annotations
 
-import warnings
 from tunnelsmith.physics import materials as _materials
-from tunnelsmith.optimize.inputs.dimensions import _count_designs, design_count, search_dimensions
+from tunnelsmith.optimize.inputs.dimensions import monolayer_span_nm, _count_designs, design_count, search_dimensions
 from tunnelsmith.optimize.inputs.schema import Choices, ContactSpec, FloatRange, IntRange, LayerSpec, StackSpec
 from tunnelsmith.optimize.inputs.tables import _fmt
 
@@ -32,27 +31,8 @@ def _span_text(lo: float, hi: float, digits: str = ".2f") -> str:
     return lo_text if lo_text == hi_text else f"{lo_text}–{hi_text}"
 
 
-def _monolayers_nm(spec: StackSpec, material: str | Choices, fraction) -> tuple[float, float]:
-    """Smallest and largest monolayer thickness (nm) over a layer's possible materials."""
-    names = material.values if isinstance(material, Choices) else (material,)
-    values = []
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        for name in names:
-            fractions = [None]
-            if name in _materials.ALLOYS:
-                fractions = [fraction.min, fraction.max] if isinstance(fraction, FloatRange) else [fraction]
-            for x in fractions:
-                values.append(
-                    _materials.material(
-                        name, spec.temperature_K, fraction=x, user=spec.user_materials
-                    ).monolayer_nm
-                )
-    return min(values), max(values)
-
-
 def _thickness_text(spec: StackSpec, layer: LayerSpec) -> str:
-    ml_lo, ml_hi = _monolayers_nm(spec, layer.material, layer.fraction)
+    ml_lo, ml_hi = monolayer_span_nm(spec, layer.material, layer.fraction)
     if layer.thickness_ml is not None:
         t = layer.thickness_ml
         n_lo, n_hi = (t.min, t.max) if isinstance(t, IntRange) else (t, t)

@@ -3,6 +3,7 @@
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from tunnelsmith.physics import materials as _materials
 from tunnelsmith.optimize.inputs.schema import Choices, FloatRange, IntRange, StackSpec
@@ -70,3 +71,33 @@ def _count_designs(spec: StackSpec, *, continuous_as_one: bool) -> int | None:
             return None
         total *= (len(names) - alloys + alloys * fraction_size) * thickness_size
     return total
+
+
+def monolayer_span_nm(spec: StackSpec, material: str | Choices, fraction) -> tuple[float, float]:
+    """Smallest and largest monolayer thickness (nm) over a layer's possible materials."""
+    names = material.values if isinstance(material, Choices) else (material,)
+    values = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for name in names:
+            fractions = [None]
+            if name in _materials.ALLOYS:
+                fractions = [fraction.min, fraction.max] if isinstance(fraction, FloatRange) else [fraction]
+            for x in fractions:
+                values.append(
+                    _materials.material(
+                        name, spec.temperature_K, fraction=x, user=spec.user_materials
+                    ).monolayer_nm
+                )
+    return min(values), max(values)
+
+
+def thickness_span_nm(spec: StackSpec, layer) -> tuple[float, float]:
+    """Thinnest and thickest a layer can be (nm) over its range and possible materials."""
+    if layer.thickness_ml is not None:
+        ml_lo, ml_hi = monolayer_span_nm(spec, layer.material, layer.fraction)
+        t = layer.thickness_ml
+        n_lo, n_hi = (t.min, t.max) if isinstance(t, IntRange) else (t, t)
+        return n_lo * ml_lo, n_hi * ml_hi
+    t = layer.thickness_nm
+    return (t.min, t.max) if isinstance(t, FloatRange) else (t, t)

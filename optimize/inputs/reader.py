@@ -35,8 +35,9 @@ from tunnelsmith.physics import materials as _materials
 from tunnelsmith.physics.metrics import CATALOGUE as METRICS
 from tunnelsmith.optimize.inputs.dimensions import design_count
 from tunnelsmith.optimize.inputs.schema import BiasSweep, Choices, ConstraintSpec, ContactSpec, EnergyGrid, FloatRange, IntRange, LayerSpec, ModelSpec, ObjectiveSpec, RobustSpec, SAMPLERS, SearchSpec, StackSpec, ToleranceSpec, WindowSpec, YIELD, _MIN_IV_STEPS
+from tunnelsmith.optimize.inputs.plausibility import plausibility_warnings
 from tunnelsmith.optimize.inputs.tables import _MISSING, _nearest, _quoted, _rename_fix, _shown
-from tunnelsmith.optimize.inputs.tables import _Table, _fmt
+from tunnelsmith.optimize.inputs.tables import KeyHomes, _Table, _fmt
 
 
 _TOP_KEYS = (
@@ -96,6 +97,24 @@ _GOALS = ("maximize", "minimize")
 
 
 _STATISTICS = ("quantile", "mean")
+
+
+#: The temperature of a file without ``temperature_K`` (announced as a warning).
+DEFAULT_TEMPERATURE_K = 300.0
+#: Above this the material parameters and Fermi integrals lose all meaning: refused.
+MAX_TEMPERATURE_K = 2000.0
+
+#: Every table of the schema with its keys: tells a misplaced key where it belongs.
+KEY_HOMES = KeyHomes(
+    {
+        "": _TOP_KEYS, "campaign": _CAMPAIGN_KEYS, "emitter": _CONTACT_KEYS, "collector": _CONTACT_KEYS,
+        "layer": _LAYER_KEYS, "materials.*": _USER_MATERIAL_KEYS, "bias": _BIAS_KEYS, "energy": _ENERGY_KEYS,
+        "model": _MODEL_KEYS, "objective": _OBJECTIVE_KEYS, "constraint": _BOUNDED_KEYS,
+        "search": _SEARCH_KEYS, "tolerance": _TOLERANCE_KEYS, "tolerance.robust": _ROBUST_KEYS,
+        "tolerance.spec": _BOUNDED_KEYS,
+    },
+    arrays=("layer", "objective", "constraint", "tolerance.spec"),
+)  # fmt: skip
 
 
 _CAMPAIGN_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*")
@@ -205,7 +224,7 @@ class _Reader:
         self.path = path
         self.text = text
         self.file = str(path)
-        self.root = _Table(self.file, "", data, _TOP_KEYS)
+        self.root = _Table(self.file, "", data, _TOP_KEYS, kind="", homes=KEY_HOMES)
         # message -> keys it applies to, so that one warning about a material used in
         # several layers is reported once.
         self.warnings: dict[str, list[str]] = {}
@@ -219,7 +238,13 @@ class _Reader:
 
     def spec(self) -> StackSpec:
         root = self.root
-        self.temperature_K = root.number("temperature_K", 300.0, example="300", above=0.0)
+        self.temperature_K = root.number("temperature_K", DEFAULT_TEMPERATURE_K, example="300", above=0.0,
+                                         at_most=MAX_TEMPERATURE_K)
+        if not root.has("temperature_K"):
+            # Temperature changes every result (band gaps, Fermi tails); never default in silence.
+            self.warn("temperature_K", f"the file sets no temperature_K, so it is computed at "
+                      f"{DEFAULT_TEMPERATURE_K:g} K; write temperature_K = ... above the first [table] "
+                      "header to state it")
         campaign = root.table("campaign", _CAMPAIGN_KEYS, example='[campaign] with name = "my-rtd"')
         name, description = self.path.stem, ""
         if campaign is not None:
@@ -271,6 +296,8 @@ class _Reader:
         )
         self.check_campaign(spec, search_table)
         self.check_model(spec)
+        for key, message in plausibility_warnings(spec):
+            self.warn(key, message)
         merged = tuple(f"{', '.join(keys)}: {message}" for message, keys in self.warnings.items())
         return replace(spec, warnings=merged)
 
@@ -352,7 +379,8 @@ class _Reader:
             )
         user: dict[str, dict[str, float]] = {}
         for name, values in raw.items():
-            table = _Table(self.file, f"materials.{name}", values, _USER_MATERIAL_KEYS)
+            table = _Table(self.file, f"materials.{name}", values, _USER_MATERIAL_KEYS, kind="materials.*",
+                           homes=KEY_HOMES)
             self._check_user_name(table, name)
             user[name] = {
                 "conduction_band_eV": table.number("conduction_band_eV", example="-3.2"),

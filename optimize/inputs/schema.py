@@ -281,6 +281,11 @@ class StackSpec:
     warnings: tuple[str, ...] = ()
 
     @property
+    def located_warnings(self) -> tuple[str, ...]:
+        """The warnings as printed: ``<file>: <key>: <message>``."""
+        return tuple(f"{self.path}: {warning}" for warning in self.warnings)
+
+    @property
     def sha256(self) -> str:
         """SHA-256 of the file text (UTF-8), hex."""
         return hashlib.sha256(self.text.encode("utf-8")).hexdigest()

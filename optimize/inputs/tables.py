@@ -59,23 +59,87 @@ def _rename_fix(word: str, candidates: Iterable[str], what: str) -> str:
     return f"did you mean {_quoted(near)}? ({allowed})" if near else f"use one of them: {allowed}"
 
 
-class _Table:
-    """One TOML table under a dotted key path; reads typed values or raises InputError."""
+def header_of(kind: str, arrays: frozenset[str] = frozenset()) -> str:
+    """How a table kind is written in a file: ``[search]``, ``[[layer]]``, ``[materials.NAME]``."""
+    if kind in arrays:
+        return f"[[{kind}]]"
+    return f"[{kind.replace('*', 'NAME')}]"
 
-    def __init__(self, file: str, path: str, data: Mapping[str, Any], allowed: Iterable[str]):
+
+class KeyHomes:
+    """Where every key of the schema is valid, to tell a misplaced key where it belongs.
+
+    Parameters
+    ----------
+    tables : mapping of str to iterable of str
+        Table kind → its keys. The kind is the dotted table path without entry labels:
+        ``""`` for the top level, ``"search"``, ``"tolerance.spec"``; ``*`` stands for a
+        user-chosen name (``"materials.*"``).
+    arrays : iterable of str
+        Kinds written as arrays of tables (``[[layer]]``).
+    """
+
+    def __init__(self, tables: Mapping[str, Iterable[str]], arrays: Iterable[str] = ()):
+        self.tables = {kind: tuple(keys) for kind, keys in tables.items()}
+        self.arrays = frozenset(arrays)
+
+    def homes(self, key: str, *, besides: str) -> list[str]:
+        """The kinds other than ``besides`` where ``key`` is valid."""
+        return [kind for kind, keys in self.tables.items() if kind != besides and key in keys]
+
+    def advice(self, key: str, kind: str) -> str | None:
+        """How to move ``key`` out of a table of ``kind`` to where it belongs, or None."""
+        homes = self.homes(key, besides=kind)
+        if not homes:
+            return None
+        tables = [f"{home}.{key}" if home else key for home in homes]
+        tables = [table for table in tables if table in self.tables]
+        if tables:
+            header = header_of(tables[0], self.arrays)
+            return f"{header} is a table of its own: write it under its own {header} header, not inside this one"
+        if "" in homes:
+            return (f"{key} is a top-level key: put it above the first [table] header of the file "
+                    f"(TOML puts every key below a header into that table)")
+        enclosing = [home for home in homes if kind.startswith(home + ".")]
+        if enclosing:
+            home = header_of(enclosing[0], self.arrays)
+            others = [header_of(other, self.arrays) for other in homes if other != enclosing[0]]
+            also = f" (it is also a key of {' and '.join(others)})" if others else ""
+            return (f"{key} belongs in {home}: move it into {home}, above its first "
+                    f"{header_of(kind, self.arrays)} header{also}")
+        where = " or ".join(header_of(home, self.arrays) for home in homes)
+        return f"{key} belongs in {where}: move it there"
+
+
+class _Table:
+    """One TOML table under a dotted key path; reads typed values or raises InputError.
+
+    ``kind`` is the table's place in the schema (see :class:`KeyHomes`); with ``homes``,
+    an unknown key that is valid in another table is answered with where it belongs.
+    """
+
+    def __init__(self, file: str, path: str, data: Mapping[str, Any], allowed: Iterable[str], *,
+                 kind: str | None = None, homes: KeyHomes | None = None):
         self.file = file
         self.path = path
         self.data = data
+        self.kind = path if kind is None else kind
+        self.homes = homes
         allowed = tuple(allowed)
         for key in data:
             if key not in allowed:
+                moved = homes.advice(key, self.kind) if homes is not None else None
                 near = _nearest(key, allowed)
-                fix = (
-                    f"rename it to {_quoted(near)}"
-                    if near
-                    else f"remove it; the keys allowed here are {', '.join(allowed)}"
-                )
+                if moved is not None:
+                    fix = moved
+                elif near:
+                    fix = f"rename it to {_quoted(near)}"
+                else:
+                    fix = f"remove it; the keys allowed here are {', '.join(allowed)}"
                 raise self.error(key, f'unknown key "{key}"', fix)
+
+    def _child_kind(self, name: str) -> str:
+        return f"{self.kind}.{name}" if self.kind else name
 
     def key(self, name: str | None = None) -> str | None:
         if name is None:
@@ -187,7 +251,7 @@ class _Table:
             raise self.error(
                 name, f"expected a table, got {_shown(value)}", f"write it as a table, e.g. {example}"
             )
-        return _Table(self.file, self.key(name), value, allowed)
+        return _Table(self.file, self.key(name), value, allowed, kind=self._child_kind(name), homes=self.homes)
 
     def tables(self, name: str, allowed: Iterable[str], *, example: str, label=None) -> list[_Table]:
         """An array of tables (``[[name]]``); ``label(index, data)`` names each entry."""
@@ -204,7 +268,7 @@ class _Table:
         entries = []
         for index, item in enumerate(value, start=1):
             path = label(index, item) if label else f"{self.key(name)}[{index}]"
-            entries.append(_Table(self.file, path, item, allowed))
+            entries.append(_Table(self.file, path, item, allowed, kind=self._child_kind(name), homes=self.homes))
         return entries
 
 

@@ -1,0 +1,131 @@
+"""Guard rails on input: no silent physics default, warnings for implausible values,
+``--strict`` for pipelines, and clear answers to inputs that used to crash.
+
+Every warning names the file, the key, the value and the usual range with its source.
+"""
+
+from __future__ import annotations
+
+import pytest
+from conftest import CAMPAIGNS, small_campaign, tunnelsmith, write_campaign
+
+from tunnelsmith.optimize.errors import InputError
+from tunnelsmith.optimize.inputs.reader import load
+
+# An invented GaAs / Al0.3Ga0.7As double barrier (both direct-gap: no material warning).
+STACK = """temperature_K = 300.0
+
+[emitter]
+material = "GaAs"
+doping_cm3 = 2e18
+
+[collector]
+material = "GaAs"
+doping_cm3 = 2e18
+
+[[layer]]
+name = "barrier_in"
+material = "Al0.3Ga0.7As"
+thickness_ml = 10
+
+[[layer]]
+name = "well"
+material = "GaAs"
+thickness_ml = 16
+
+[[layer]]
+name = "barrier_out"
+like = "barrier_in"
+
+[energy]
+from_eV = 0.0
+to_eV = 0.6
+points = 201
+"""
+
+
+def stack_file(tmp_path, text: str = STACK, name: str = "stack.toml"):
+    path = tmp_path / name
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def warnings_of(tmp_path, text: str) -> list[str]:
+    return list(load(stack_file(tmp_path, text)).located_warnings)
+
+
+def test_a_usual_stack_has_no_warning(tmp_path):
+    assert warnings_of(tmp_path, STACK) == []
+
+
+def test_a_missing_temperature_is_announced_not_silent(tmp_path):
+    path = stack_file(tmp_path, STACK.replace("temperature_K = 300.0\n", ""))
+    spec = load(path)
+    assert spec.temperature_K == 300.0
+    (warning,) = spec.located_warnings
+    assert warning.startswith(f"{path}: temperature_K: ") and "computed at 300 K" in warning
+    result = tunnelsmith("solve", path, "--out", tmp_path / "out", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert result.stderr.splitlines()[0].startswith(f"warning: {path}: temperature_K")
+    import xarray as xr
+
+    with xr.open_dataset(tmp_path / "out" / "solution.nc") as solution:
+        assert solution.attrs["temperature_K"] == 300.0
+
+
+@pytest.mark.parametrize("edit,key,words", [
+    (("doping_cm3 = 2e18", "doping_cm3 = 1e24"), "emitter.doping_cm3", "1e+24 is outside the usual 1e+14 to 1e+20"),
+    (("temperature_K = 300.0", "temperature_K = 0.5"), "temperature_K", "Vurgaftman"),
+    (("thickness_ml = 16", "thickness_ml = 200"), 'layer "well".thickness', "more than the 50 nm"),
+    (("points = 201", "points = 201\n\n[bias]\nfrom_V = 0.0\nto_V = 500.0\nsteps = 11"), "bias", "beyond +-5 V"),
+])
+def test_implausible_values_warn_with_key_value_and_range(tmp_path, edit, key, words):
+    text = STACK.replace(*edit, 1)
+    assert text != STACK
+    (warning,) = [w for w in warnings_of(tmp_path, text) if f": {key}" in w]
+    assert words in warning and ("common practice" in warning or "Vurgaftman" in warning)
+
+
+def test_a_target_outside_the_energy_window_and_an_oversized_budget_warn(tmp_path):
+    text = small_campaign("warned", target_eV=0.9, trials=5000)
+    spec = load(write_campaign(tmp_path, text))
+    assert any("objective[1].target" in w and "outside the energy window" in w for w in spec.located_warnings)
+    assert any("search.trials" in w and "distinct designs" in w for w in spec.located_warnings)
+
+
+def test_strict_turns_a_warning_into_exit_2_and_without_it_exit_0(tmp_path):
+    path = stack_file(tmp_path, STACK.replace("doping_cm3 = 2e18", "doping_cm3 = 1e24", 1))
+    relaxed = tunnelsmith("check", path, cwd=tmp_path)
+    assert relaxed.returncode == 0, relaxed.stderr
+    assert "1e+24" in relaxed.stdout
+    strict = tunnelsmith("check", path, "--strict", cwd=tmp_path)
+    assert strict.returncode == 2 and "Traceback" not in strict.stderr
+    assert f"{path}: emitter.doping_cm3:" in strict.stderr and "without --strict" in strict.stderr
+    solve = tunnelsmith("solve", path, "--strict", "--out", tmp_path / "o", cwd=tmp_path)
+    assert solve.returncode == 2 and not (tmp_path / "o").exists()
+    clean = tunnelsmith("check", stack_file(tmp_path, STACK, "clean.toml"), "--strict", cwd=tmp_path)
+    assert clean.returncode == 0, clean.stderr
+
+
+def test_an_absurd_temperature_is_refused(tmp_path):
+    with pytest.raises(InputError) as caught:
+        load(stack_file(tmp_path, STACK.replace("temperature_K = 300.0", "temperature_K = 1e308")))
+    assert caught.value.key == "temperature_K"
+
+
+@pytest.mark.parametrize("command", ["solve", "tolerance"])
+def test_out_naming_an_existing_file_is_a_clear_error(tmp_path, command):
+    target = stack_file(tmp_path)
+    taken = tmp_path / "taken"
+    taken.write_text("not a directory\n", encoding="utf-8")
+    result = tunnelsmith(command, target, "--out", taken, cwd=tmp_path)
+    assert result.returncode == 2, result.stderr
+    assert "Traceback" not in result.stderr and "--out" in result.stderr and "existing file" in result.stderr
+    assert taken.read_text(encoding="utf-8") == "not a directory\n"
+
+
+def test_a_huge_timeout_is_a_clear_error(tmp_path):
+    result = tunnelsmith("optimize", CAMPAIGNS / "demo.toml", "--timeout", "99999999999999999999h",
+                         "--out", tmp_path / "run", cwd=tmp_path)
+    assert result.returncode == 2, result.stderr
+    assert "Traceback" not in result.stderr and "--timeout" in result.stderr
