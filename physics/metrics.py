@@ -34,7 +34,7 @@ import numpy as np
 
 from tunnelsmith.physics.current import DEFAULT_NODES, current_density
 from tunnelsmith.physics.device import Device
-from tunnelsmith.physics.profile import biased_profile
+from tunnelsmith.physics.profile import DEFAULT_SLICE_nm, biased_profile
 from tunnelsmith.physics.resonance import find_resonances, fold_contact_spacers, transmission_peaks
 from tunnelsmith.physics.transfer import log10_transmission, scattering
 
@@ -264,6 +264,7 @@ def evaluate(
     bias_V,
     max_levels: int = 4,
     nodes: int = DEFAULT_NODES,
+    slice_nm: float = DEFAULT_SLICE_nm,
 ) -> Evaluation:
     """Compute the requested metrics of every stack.
 
@@ -281,6 +282,10 @@ def evaluate(
         Levels searched and reported per bias.
     nodes : int
         Energy nodes per bias of the current integral.
+    slice_nm : float
+        Slice thickness of sloped layers (:func:`~tunnelsmith.physics.profile.biased_profile`),
+        used for every biased quantity: the current, the levels along the sweep and the
+        zero-bias profile, so one setting drives every metric.
 
     Returns
     -------
@@ -290,7 +295,7 @@ def evaluate(
     names = {r.name for r in requests}
     energy = np.asarray(energy_eV, float)
     n_stacks = device.n_stacks
-    zero = biased_profile(device, [0.0])
+    zero = biased_profile(device, [0.0], slice_nm=slice_nm)
     zero_arrays = {
         key: (None if value is None else value[:, 0]) for key, value in zero.arrays.items()
     }
@@ -314,7 +319,8 @@ def evaluate(
     leakage_bias = sorted({float(r.at_bias_V) for r in requests if r.name == "leakage_A_cm2"})
     swept_current = None
     if sweep.size or leakage_bias:
-        iv = current_density(device, np.concatenate([sweep, leakage_bias]), nodes=nodes, max_levels=max_levels)
+        iv = current_density(device, np.concatenate([sweep, leakage_bias]), nodes=nodes, max_levels=max_levels,
+                             slice_nm=slice_nm)
         current = iv.current_density_A_cm2
         if sweep.size:
             swept_current = current[:, : sweep.size]

@@ -45,16 +45,15 @@ def transmission(spec_or_path, energy_eV=None, bias_V=0.0) -> xr.DataArray:
     xarray.DataArray
         Dimensions ``(bias, energy)``; the ``[model] slice_nm`` of the file is used.
     """
+    from tunnelsmith.optimize.model.evaluation import spec_profile
     from tunnelsmith.optimize.model.stack import nominal_batch, to_device
-    from tunnelsmith.physics.profile import biased_profile
     from tunnelsmith.physics.transfer import scattering
 
     spec = _spec(spec_or_path)
     energy = np.asarray(spec.energy.values if energy_eV is None else energy_eV, dtype=float).ravel()
     bias = np.atleast_1d(np.asarray(bias_V, dtype=float)).ravel()
     device = to_device(spec, nominal_batch(spec))
-    slice_kwargs = {} if spec.model.slice_nm is None else {"slice_nm": spec.model.slice_nm}
-    profile = biased_profile(device, bias, **slice_kwargs)
+    profile = spec_profile(spec, device, bias)
     values = scattering(energy, **profile.arrays).transmission[0]
     return xr.DataArray(values, dims=("bias", "energy"),
                         coords={"bias": ("bias", bias, {"units": "V"}), "energy": ("energy", energy, {"units": "eV"})},

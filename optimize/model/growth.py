@@ -61,6 +61,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from tunnelsmith.optimize.model.stack import DesignBatch, material_arrays, monolayer_nm, split_material, to_device
 from tunnelsmith.physics import materials
+from tunnelsmith.optimize.model.evaluation import evaluate_metrics
 
 
 
@@ -259,7 +260,6 @@ def evaluate_designs(spec, batch: DesignBatch, requests, *, contact_fraction=Non
     Returns dicts ``label -> (B,)`` of values (NaN where undefined) and of the reason
     why a value is undefined (``""`` where defined).
     """
-    from tunnelsmith.physics.metrics import evaluate
 
     chunk = chunk or designs_per_call(spec, requests)
     n = batch.n_designs
@@ -269,8 +269,7 @@ def evaluate_designs(spec, batch: DesignBatch, requests, *, contact_fraction=Non
         index = slice(start, min(start + chunk, n))
         contacts = None if contact_fraction is None else tuple(np.asarray(c)[index] for c in contact_fraction)
         device = grown_device(spec, batch.take(index), contacts)
-        result = evaluate(device, requests, energy_eV=spec.energy.values, bias_V=spec.bias.values,
-                          max_levels=spec.model.max_levels)
+        result = evaluate_metrics(spec, device, requests)
         for label in values:
             values[label].append(np.asarray(result.values[label], dtype=float))
             reasons[label].append(np.asarray(result.reasons[label], dtype=object))

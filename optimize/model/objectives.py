@@ -46,6 +46,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from tunnelsmith.optimize.model.evaluation import evaluate_metrics
 
 __all__ = [
     "UNDEFINED_VIOLATION",
@@ -148,12 +149,8 @@ def metric_values(spec, batch) -> tuple[dict[str, np.ndarray], dict[str, np.ndar
         return robust_metric_values(spec, batch)
 
     from tunnelsmith.optimize.model.stack import to_device
-    from tunnelsmith.physics.metrics import evaluate
 
-    evaluation = evaluate(
-        to_device(spec, batch), list(spec.metric_requests), energy_eV=spec.energy.values,
-        bias_V=spec.bias.values, max_levels=spec.model.max_levels,
-    )
+    evaluation = evaluate_metrics(spec, to_device(spec, batch), spec.metric_requests)
     return dict(evaluation.values), dict(evaluation.reasons)
 
 

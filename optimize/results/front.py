@@ -59,6 +59,7 @@ from tunnelsmith.optimize.model import objectives as objectives_module
 from tunnelsmith.optimize.io import netcdf_name
 from tunnelsmith.physics.metrics import SWEEP_METRICS
 from tunnelsmith.optimize.search.pareto import hypervolume, merge_front, nondominated_mask
+from tunnelsmith.optimize.model.evaluation import evaluate_metrics
 
 
 #: Reference point of the normalised hypervolume, in every objective.
@@ -369,7 +370,6 @@ def _global_attrs(spec, study, table: _Table, storage_url: str | None) -> dict:
 def _front_curves(spec, table: _Table, rows: np.ndarray):
     """Zero-bias transmission (n, nE) and current density (n, nV) or None, recomputed."""
     from tunnelsmith.optimize.model.stack import DesignBatch, split_material, to_device
-    from tunnelsmith.physics.metrics import evaluate
 
     n_energy = spec.energy.points
     transmission = np.full((len(rows), n_energy), np.nan)
@@ -392,8 +392,7 @@ def _front_curves(spec, table: _Table, rows: np.ndarray):
         index = slice(start, start + _CURVE_CHUNK)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            evaluation = evaluate(to_device(spec, batch.take(index)), requests, energy_eV=spec.energy.values,
-                                  bias_V=spec.bias.values, max_levels=spec.model.max_levels)
+            evaluation = evaluate_metrics(spec, to_device(spec, batch.take(index)), requests)
         transmission[index] = evaluation.transmission
         if current is not None and evaluation.current_density_A_cm2 is not None:
             current[index] = evaluation.current_density_A_cm2

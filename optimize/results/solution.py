@@ -11,9 +11,10 @@ import xarray as xr
 from tunnelsmith.optimize.io import netcdf_name, provenance_attrs
 from tunnelsmith.optimize.model.stack import nominal_batch, to_device
 from tunnelsmith.physics import metrics as metrics_module
-from tunnelsmith.physics.profile import biased_profile, interface_positions_nm
+from tunnelsmith.physics.profile import interface_positions_nm
 from tunnelsmith.physics.resonance import closed_box_states, find_resonances
 from tunnelsmith.physics.transfer import scattering
+from tunnelsmith.optimize.model.evaluation import evaluate_metrics, spec_profile
 
 
 #: Emitter and collector are drawn this far beyond the layers in band diagrams (nm).
@@ -40,11 +41,8 @@ def solve_dataset(spec) -> xr.Dataset:
     energy_eV = spec.energy.values
     bias_V = spec.bias.values
     requests = solution_requests(spec)
-    evaluation = metrics_module.evaluate(
-        device, requests, energy_eV=energy_eV, bias_V=bias_V, max_levels=spec.model.max_levels
-    )
-    slice_kwargs = {} if spec.model.slice_nm is None else {"slice_nm": spec.model.slice_nm}
-    profile = biased_profile(device, bias_V, **slice_kwargs)
+    evaluation = evaluate_metrics(spec, device, requests)
+    profile = spec_profile(spec, device, bias_V)
     transmission = scattering(energy_eV, **profile.arrays).transmission[0]  # (nV, nE)
     window = (float(energy_eV[0]), float(energy_eV[-1]))
     levels = find_resonances(**profile.arrays, window_eV=window, max_levels=spec.model.max_levels)
@@ -117,7 +115,7 @@ def _state_variables(spec, device, evaluation, bias_V) -> dict:
     if peak is not None and np.isfinite(peak[0]):
         biases.append(float(bias_V[int(np.argmin(np.abs(bias_V - peak[0])))]))
     window = (float(spec.energy.values[0]), float(spec.energy.values[-1]))
-    profile = biased_profile(device, biases)
+    profile = spec_profile(spec, device, biases)
     energies, densities, grid = [], [], None
     for index in range(len(biases)):
         energy, position, probability = closed_box_states(
