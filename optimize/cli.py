@@ -39,6 +39,30 @@ def parse_duration_s(text: str) -> float:
     return total_s
 
 
+def parse_growth_rates(values: list[str] | None) -> float | dict[str, float] | None:
+    """``["0.8"]`` → 0.8; ``["GaAs=0.8", "AlAs=0.3"]`` → per material (monolayers per second)."""
+    if not values:
+        return None
+    rates: dict[str, float] = {}
+    for text in values:
+        name, _, number = text.rpartition("=")
+        try:
+            rate = float(number)
+        except ValueError:
+            rate = float("nan")
+        if not rate > 0 or rate == float("inf"):
+            raise InputError("command line", "--growth-rate", f"cannot read the growth rate {text!r}",
+                             "give monolayers per second, one for all (--growth-rate 0.8) or per material "
+                             "(--growth-rate GaAs=0.8 --growth-rate AlAs=0.3)")
+        if not name:
+            if len(values) > 1:
+                raise InputError("command line", "--growth-rate", "a rate for all layers cannot be combined with "
+                                 "other rates", "give one --growth-rate value, or one MATERIAL=RATE per material")
+            return rate
+        rates[name.strip()] = rate
+    return rates
+
+
 def _positive_int(text: str) -> int:
     try:
         value = int(text)
@@ -59,7 +83,9 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     solve = commands.add_parser("solve", help="transmission, levels, I-V and metrics of one stack")
-    solve.add_argument("stack", type=Path, metavar="STACK.toml")
+    solve.add_argument("stack", type=Path, metavar="STACK.toml|RUN_DIR")
+    solve.add_argument("--design", type=int, help="trial number of a front design (with RUN_DIR)")
+    solve.add_argument("--storage", help="Optuna RDB URL (with RUN_DIR of a database campaign)")
     solve.add_argument("--out", type=Path, help="output directory (default runs/<file stem>/)")
 
     opt = commands.add_parser("optimize", help="start or resume a campaign")
@@ -91,6 +117,16 @@ def build_parser() -> argparse.ArgumentParser:
         command.add_argument("--strict", action="store_true",
                              help="treat warnings about implausible values as errors (exit 2), for scripts")
 
+    export = commands.add_parser("export", help="a front design as a stack file and a growth sheet")
+    export.add_argument("run_dir", type=Path, metavar="RUN_DIR")
+    export.add_argument("--design", type=int, required=True, help="trial number of a front design")
+    export.add_argument("--out", type=Path, help="output directory (default RUN_DIR/design-N/)")
+    export.add_argument("--storage", help="Optuna RDB URL (with RUN_DIR of a database campaign)")
+    export.add_argument("--growth-rate", action="append", metavar="ML_PER_S|MATERIAL=ML_PER_S",
+                        help="growth rate in monolayers per second: one value, or one per material (repeat)")
+    export.add_argument("--substrate-side", choices=("emitter", "collector"), default="emitter",
+                        help="the contact grown first, on the substrate (default: emitter)")
+
     materials = commands.add_parser("materials", help="the material table with the source of every value")
     materials.add_argument("--temperature", type=float, default=300.0, metavar="K")
     return parser
@@ -113,7 +149,13 @@ def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "solve":
         from tunnelsmith.optimize.commands.solve import run_solve
 
-        return run_solve(args.stack, out_dir=args.out)
+        return run_solve(args.stack, out_dir=args.out, design=args.design, storage=args.storage)
+    if args.command == "export":
+        from tunnelsmith.optimize.commands.export import run_export
+
+        return run_export(args.run_dir, design=args.design, out_dir=args.out, storage=args.storage,
+                          growth_rate_ml_s=parse_growth_rates(args.growth_rate),
+                          substrate_side=args.substrate_side)
     if args.command == "optimize":
         from tunnelsmith.optimize.commands.optimize import run_campaign
 

@@ -1,0 +1,83 @@
+"""From a front to the grower: ``solve RUN_DIR --design N`` and ``export``, end to end."""
+
+from __future__ import annotations
+
+import csv
+import tomllib
+
+import pytest
+import xarray as xr
+from conftest import small_campaign, tunnelsmith, write_campaign
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    directory = tmp_path_factory.mktemp("export")
+    campaign = write_campaign(directory, small_campaign("exported", trials=64, batch=32))
+    result = tunnelsmith("optimize", campaign, "--out", "run", "--quiet", cwd=directory)
+    assert result.returncode == 0, result.stderr
+    with xr.open_dataset(directory / "run" / "front.nc") as front:
+        designs = [int(d) for d in front["design"].values]
+        energy = {int(d): float(v) for d, v in zip(front["design"].values, front["resonance_energy_eV"].values)}
+        monolayers = {int(d): front["monolayers"].sel(design=d).values.copy() for d in designs}
+    return directory, designs, energy, monolayers
+
+
+def test_solve_of_a_front_design_reproduces_its_metrics_exactly(run):
+    directory, designs, energy, _ = run
+    design = designs[0]
+    result = tunnelsmith("solve", "run", "--design", design, "--out", "solved", cwd=directory)
+    assert result.returncode == 0, result.stderr
+    with xr.open_dataset(directory / "solved" / "solution.nc") as solution:
+        assert float(solution["resonance_energy_eV"]) == pytest.approx(energy[design], rel=1e-12, abs=1e-15)
+    stack = tomllib.loads((directory / "solved" / "stack.toml").read_text(encoding="utf-8"))
+    assert "campaign" not in stack and "objective" not in stack
+    assert all(not isinstance(v, dict) for layer in stack["layer"] for v in layer.values())  # no ranges
+
+
+def test_export_writes_a_stack_the_solver_accepts_and_a_growth_sheet(run):
+    directory, designs, _, monolayers = run
+    design = designs[-1]
+    result = tunnelsmith("export", "run", "--design", design, "--growth-rate", "0.5", cwd=directory)
+    assert result.returncode == 0, result.stderr
+    out = directory / "run" / f"design-{design}"
+    assert tunnelsmith("check", out / "stack.toml", cwd=directory).returncode == 0
+    with open(out / "growth_sheet.csv", newline="", encoding="utf-8") as handle:
+        rows = list(csv.DictReader(handle))
+    assert list(rows[0]) == ["order", "layer", "material", "monolayers", "thickness_nm", "doping_cm3", "time_s"]
+    layers = rows[1:-2]  # between the two contact rows, before the total
+    assert [r["layer"] for r in layers] == ["spacer_in", "barrier_in", "well", "barrier_out", "spacer_out"]
+    assert rows[0]["layer"] == "emitter contact" and rows[-2]["layer"] == "collector contact"
+    assert float(rows[0]["doping_cm3"]) == 2e18
+    # The monolayer layers show whole monolayers, equal to the front's, and time = ml / rate.
+    for index in (1, 2, 3):
+        assert float(layers[index]["monolayers"]) == pytest.approx(round(float(monolayers[design][index])))
+        assert float(layers[index]["time_s"]) == pytest.approx(float(layers[index]["monolayers"]) / 0.5)
+    total = sum(float(r["thickness_nm"]) for r in layers)
+    assert float(rows[-1]["thickness_nm"]) == pytest.approx(total, rel=1e-3)
+    markdown = (out / "growth_sheet.md").read_text(encoding="utf-8")
+    assert "| order | layer | material | monolayers | thickness_nm | doping_cm3 | time_s |" in markdown
+    assert "do not replace measurement" in markdown
+
+
+def test_export_reverses_for_collector_side_growth_and_names_missing_rates(run):
+    directory, designs, _, _ = run
+    result = tunnelsmith("export", "run", "--design", designs[0], "--substrate-side", "collector", "--out", "rev",
+                         cwd=directory)
+    assert result.returncode == 0, result.stderr
+    with open(directory / "rev" / "growth_sheet.csv", newline="", encoding="utf-8") as handle:
+        rows = list(csv.DictReader(handle))
+    assert rows[0]["layer"] == "collector contact" and rows[1]["layer"] == "spacer_out"
+    missing = tunnelsmith("export", "run", "--design", designs[0], "--growth-rate", "AlAs=0.3", "--out", "m",
+                          cwd=directory)
+    assert missing.returncode == 2 and "Traceback" not in missing.stderr
+    assert "In0.53Ga0.47As" in missing.stderr and "--growth-rate" in missing.stderr
+
+
+def test_a_design_not_on_the_front_is_a_clear_error(run):
+    directory, designs, _, _ = run
+    absent = max(designs) + 1000
+    for command in ("solve", "export"):
+        result = tunnelsmith(command, "run", "--design", absent, "--out", f"x-{command}", cwd=directory)
+        assert result.returncode == 2, result.stderr
+        assert "not on the front" in result.stderr and "Traceback" not in result.stderr
