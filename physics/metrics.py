@@ -173,45 +173,119 @@ def _parabola_vertex(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarr
     return np.where(usable, vertex_x, x1), np.where(usable, vertex_y, y1)
 
 
-def _first_index(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Index of the first True per row and whether there is one."""
-    return np.argmax(mask, axis=-1), np.any(mask, axis=-1)
+#: A fall (or rise) of |J| smaller than this fraction of the peak (valley) current is a
+#: ripple of the curve, not a negative-differential-resistance region. Measured I–V
+#: curves and the adaptive current integral ripple well below 1 % (common practice).
+RIPPLE_FRACTION = 0.02
+
+
+def ndr_regions(magnitude: np.ndarray, ripple: float = RIPPLE_FRACTION) -> tuple[list[tuple[int, int]], int | None]:
+    """Negative-differential-resistance regions of one branch of ``|J|``.
+
+    Parameters
+    ----------
+    magnitude : ndarray, shape (n,)
+        ``|J|`` ordered from zero bias outward (one polarity).
+    ripple : float
+        Relative fall that confirms a peak, and relative rise that confirms a valley.
+
+    Returns
+    -------
+    regions : list of (peak index, valley index)
+        Every peak followed by a fall of more than ``ripple`` and then by a rise of more
+        than ``ripple`` from its lowest point (the valley), in order.
+    open_peak : int or None
+        A confirmed peak after the last region whose valley the branch never reaches.
+    """
+    regions: list[tuple[int, int]] = []
+    candidate, peak, low = 0, None, 0
+    for k in range(1, len(magnitude)):
+        value = magnitude[k]
+        if peak is None:
+            if value >= magnitude[candidate]:
+                candidate = k
+            elif value < magnitude[candidate] * (1.0 - ripple):
+                peak, low = candidate, k
+        elif value <= magnitude[low]:
+            low = k
+        elif value > magnitude[low] * (1.0 + ripple):
+            regions.append((peak, low))
+            peak, candidate = None, k
+    return regions, peak
+
+
+def _branches(bias_V: np.ndarray) -> list[np.ndarray]:
+    """Indices of each polarity of the sweep, ordered from zero bias outward.
+
+    Zero bias, where swept, starts both branches; the order of the sweep itself
+    (ascending, descending, bipolar) does not matter.
+    """
+    zero = np.flatnonzero(bias_V == 0.0)
+    branches = []
+    for sign in (1.0, -1.0):
+        side = np.flatnonzero(sign * bias_V > 0.0)
+        side = side[np.argsort(np.abs(bias_V[side]), kind="stable")]
+        branches.append(np.concatenate([zero[:1], side]))
+    return [branch for branch in branches if branch.size >= 3]
 
 
 def _peak_and_valley(bias_V: np.ndarray, current: np.ndarray) -> dict[str, tuple[np.ndarray, np.ndarray]]:
-    """Peak/valley metrics of ``|J|`` along the sweep: name -> (value, reason)."""
+    """Peak/valley metrics of ``|J|`` along the sweep: name -> (value, reason).
+
+    Rule: each polarity is analysed from zero bias outward, whatever the order of the
+    sweep; of all negative-differential-resistance regions (:func:`ndr_regions`, ripples
+    below :data:`RIPPLE_FRACTION` ignored) the one with the largest peak-to-valley
+    ratio is reported. Peak and valley are refined by the parabola through the three
+    biases around them. Voltages keep their sign; currents are magnitudes.
+    """
+    bias_V = np.asarray(bias_V, dtype=float)
     magnitude = np.abs(current)
-    n_stacks, n_bias = magnitude.shape
+    n_stacks = magnitude.shape[0]
     values = {name: np.full(n_stacks, np.nan) for name in SWEEP_METRICS}
     reason = np.full(n_stacks, "", dtype=object)
-    if n_bias < 3:
-        reason[:] = "the bias sweep has fewer than 3 points"
+    has_peak = np.zeros(n_stacks, dtype=bool)
+    has_valley = np.zeros(n_stacks, dtype=bool)
+    branches = _branches(bias_V)
+    if not branches:
+        reason[:] = "the bias sweep has fewer than 3 points on either side of zero"
         return {name: (value, reason.astype(str)) for name, value in values.items()}
-    left, middle, right = magnitude[:, :-2], magnitude[:, 1:-1], magnitude[:, 2:]
-    position = np.arange(1, n_bias - 1)
-    peak, has_peak = _first_index((middle > left) & (middle >= right))
-    peak = peak + 1
-    after = position[None, :] > peak[:, None]
-    valley, has_valley = _first_index((middle < left) & (middle <= right) & after)
-    valley = valley + 1
-    has_valley &= has_peak
-    reason[~has_valley] = "no valley after the current peak inside the bias sweep"
-    reason[~has_peak] = "no current peak inside the bias sweep"
 
-    def refined(index):
-        window = np.clip(index[:, None] + np.arange(-1, 2), 0, n_bias - 1)
-        volts = np.broadcast_to(bias_V, magnitude.shape)
-        return _parabola_vertex(np.take_along_axis(volts, window, -1), np.take_along_axis(magnitude, window, -1))
+    def refined(branch: np.ndarray, row: np.ndarray, at: int) -> tuple[float, float]:
+        window = branch[np.clip(at + np.arange(-1, 2), 0, branch.size - 1)]
+        vertex_V, vertex_J = _parabola_vertex(bias_V[window][None, :], row[window][None, :])
+        return float(vertex_V[0]), float(vertex_J[0])
 
-    peak_V, peak_J = refined(peak)
-    valley_V, valley_J = refined(valley)
-    values["peak_voltage_V"] = np.where(has_peak, peak_V, np.nan)
-    values["peak_current_A_cm2"] = np.where(has_peak, peak_J, np.nan)
-    values["valley_voltage_V"] = np.where(has_valley, valley_V, np.nan)
-    values["valley_current_A_cm2"] = np.where(has_valley, valley_J, np.nan)
+    for s in range(n_stacks):
+        row = magnitude[s]
+        best, first_open = None, None
+        for branch in branches:
+            regions, open_peak = ndr_regions(row[branch])
+            for peak, valley in regions:
+                with np.errstate(divide="ignore"):
+                    ratio = row[branch[peak]] / row[branch[valley]] if row[branch[valley]] > 0 else np.inf
+                if best is None or ratio > best[0]:
+                    best = (ratio, branch, peak, valley)
+            if open_peak is not None and first_open is None:
+                first_open = (branch, open_peak)
+        if best is not None:
+            _, branch, peak, valley = best
+            peak_V, peak_J = refined(branch, row, peak)
+            valley_V, valley_J = refined(branch, row, valley)
+            has_peak[s] = has_valley[s] = True
+            values["peak_voltage_V"][s], values["peak_current_A_cm2"][s] = peak_V, peak_J
+            values["valley_voltage_V"][s], values["valley_current_A_cm2"][s] = valley_V, valley_J
+        elif first_open is not None:
+            branch, peak = first_open
+            values["peak_voltage_V"][s], values["peak_current_A_cm2"][s] = refined(branch, row, peak)
+            has_peak[s] = True
+            reason[s] = "no valley after the current peak inside the bias sweep"
+        else:
+            reason[s] = "no current peak inside the bias sweep"
+    peak_J, valley_J = values["peak_current_A_cm2"], values["valley_current_A_cm2"]
     with np.errstate(divide="ignore", invalid="ignore"):
         values["pvcr"] = np.where(has_valley, peak_J / valley_J, np.nan)
-    values["swing_product_W_cm2"] = np.where(has_valley, (peak_J - valley_J) * np.abs(valley_V - peak_V), np.nan)
+    values["swing_product_W_cm2"] = np.where(
+        has_valley, (peak_J - valley_J) * np.abs(values["valley_voltage_V"] - values["peak_voltage_V"]), np.nan)
     reasons = {name: np.where(has_valley, "", reason).astype(str) for name in SWEEP_METRICS}
     for name in ("peak_voltage_V", "peak_current_A_cm2"):
         reasons[name] = np.where(has_peak, "", reason).astype(str)
