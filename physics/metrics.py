@@ -35,6 +35,7 @@ import numpy as np
 from tunnelsmith.physics.current import DEFAULT_NODES, current_density
 from tunnelsmith.physics.device import Device
 from tunnelsmith.physics.profile import DEFAULT_SLICE_nm, biased_profile
+from tunnelsmith.physics.series import applied_curve
 from tunnelsmith.physics.resonance import find_resonances, fold_contact_spacers, transmission_peaks
 from tunnelsmith.physics.transfer import log10_transmission, scattering
 
@@ -123,7 +124,14 @@ class Evaluation:
     bias_V : ndarray (nV,) or None
     current_density_A_cm2 : ndarray (B, nV) or None
         The bias sweep, present when a peak/valley metric was requested (a request for
-        ``leakage_A_cm2`` alone computes only its own biases).
+        ``leakage_A_cm2`` alone computes only its own biases); with a series resistance,
+        the current an upward sweep records at the applied biases
+        (:func:`~tunnelsmith.physics.series.applied_curve`).
+    intrinsic_current_density_A_cm2 : ndarray (B, nV) or None
+        With a series resistance: the current at the same biases across the active
+        region alone.
+    bistable : ndarray (B,) of bool or None
+        With a series resistance: whether the applied-bias curve folds (the sweep jumps).
     """
 
     values: dict[str, np.ndarray]
@@ -134,6 +142,8 @@ class Evaluation:
     resonance_width_eV: np.ndarray
     bias_V: np.ndarray | None = None
     current_density_A_cm2: np.ndarray | None = None
+    intrinsic_current_density_A_cm2: np.ndarray | None = None
+    bistable: np.ndarray | None = None
 
 
 def _check(requests: Sequence[MetricRequest]) -> None:
@@ -172,6 +182,10 @@ def _parabola_vertex(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarr
     usable = np.isfinite(vertex_x) & (curvature != 0.0) & (vertex_x >= lo) & (vertex_x <= hi)
     return np.where(usable, vertex_x, x1), np.where(usable, vertex_y, y1)
 
+
+#: Relative bias step of the slope dJ/dV that corrects a leakage current for the
+#: series resistance.
+LEAKAGE_SLOPE_STEP = 0.01
 
 #: A fall (or rise) of |J| smaller than this fraction of the peak (valley) current is a
 #: ripple of the curve, not a negative-differential-resistance region. Measured I–V
@@ -339,6 +353,7 @@ def evaluate(
     max_levels: int = 4,
     nodes: int = DEFAULT_NODES,
     slice_nm: float = DEFAULT_SLICE_nm,
+    series_resistance_ohm_cm2: float = 0.0,
 ) -> Evaluation:
     """Compute the requested metrics of every stack.
 
@@ -360,6 +375,13 @@ def evaluate(
         Slice thickness of sloped layers (:func:`~tunnelsmith.physics.profile.biased_profile`),
         used for every biased quantity: the current, the levels along the sweep and the
         zero-bias profile, so one setting drives every metric.
+    series_resistance_ohm_cm2 : float
+        Area-specific series resistance; with ``R_s > 0`` every bias of ``bias_V`` and of
+        a leakage request is an applied bias, ``V = V_int + J R_s``
+        (:mod:`~tunnelsmith.physics.series`): the sweep metrics are read from an upward
+        sweep of the applied bias, and a leakage current is taken at the intrinsic bias
+        ``V_int = V - J R_s`` with ``J`` linearised about ``V`` (one Newton step, exact
+        up to the curvature of ``J`` over the small ``J R_s`` of the leakage regime).
 
     Returns
     -------
@@ -392,18 +414,38 @@ def evaluate(
     sweep = np.asarray(bias_V, float) if names & SWEEP_METRICS else np.zeros(0)
     leakage_bias = sorted({float(r.at_bias_V) for r in requests if r.name == "leakage_A_cm2"})
     swept_current = None
+    intrinsic_current, bistable = None, None
+    resistance = float(series_resistance_ohm_cm2)
     if sweep.size or leakage_bias:
-        iv = current_density(device, np.concatenate([sweep, leakage_bias]), nodes=nodes, max_levels=max_levels,
-                             slice_nm=slice_nm)
+        # The intrinsic sweep needs zero bias, where the applied-bias mapping starts; with
+        # a series resistance each leakage bias gets a neighbour for the slope dJ/dV.
+        extra = [0.0] if resistance > 0.0 and sweep.size and not np.any(sweep == 0.0) else []
+        slope_bias = [b * (1.0 - LEAKAGE_SLOPE_STEP) for b in leakage_bias] if resistance > 0.0 else []
+        iv = current_density(device, np.concatenate([sweep, extra, leakage_bias, slope_bias]), nodes=nodes,
+                             max_levels=max_levels, slice_nm=slice_nm)
         current = iv.current_density_A_cm2
         if sweep.size:
             swept_current = current[:, : sweep.size]
+            if resistance > 0.0:
+                intrinsic_current = swept_current
+                swept_current, bistable = applied_curve(
+                    np.concatenate([sweep, extra]), current[:, : sweep.size + len(extra)], resistance, sweep)
             computed.update(_peak_and_valley(sweep, swept_current))
             level_energy = iv.resonances.energy_eV[:, : sweep.size]
             level_width = iv.resonances.width_eV[:, : sweep.size]
+        first = sweep.size + len(extra)
+        leakage = current[:, first:first + len(leakage_bias)]
+        if resistance > 0.0 and leakage_bias:
+            # J at the intrinsic bias V_int = V - J R_s with J linearised about V:
+            # J = J(V) + J'(V)(V_int - V) gives J = J(V) / (1 + J'(V) R_s) (one Newton step).
+            below = current[:, first + len(leakage_bias):]
+            step = np.asarray(leakage_bias) * LEAKAGE_SLOPE_STEP
+            with np.errstate(divide="ignore", invalid="ignore"):
+                slope = np.where(step != 0.0, (leakage - below) / step, 0.0)
+            leakage = leakage / (1.0 + slope * resistance)
         for k, bias in enumerate(leakage_bias):
             label = MetricRequest("leakage_A_cm2", bias).label
-            computed[label] = (current[:, sweep.size + k], np.full(n_stacks, "", dtype=str))
+            computed[label] = (leakage[:, k], np.full(n_stacks, "", dtype=str))
     if "total_thickness_nm" in names:
         computed["total_thickness_nm"] = (device.total_thickness_nm, np.full(n_stacks, "", dtype=str))
 
@@ -420,4 +462,6 @@ def evaluate(
         resonance_width_eV=level_width,
         bias_V=sweep if sweep.size else None,
         current_density_A_cm2=swept_current,
+        intrinsic_current_density_A_cm2=intrinsic_current,
+        bistable=bistable,
     )
