@@ -10,7 +10,7 @@ import sys
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-SCRIPTS = ["bench_kernel.py", "bench_physics.py", "bench_tolerance.py", "bench_campaign.py", "bench_hypervolume.py"]
+SCRIPTS = ["bench_kernel.py", "bench_physics.py", "bench_tolerance.py", "bench_campaign.py", "bench_hypervolume.py", "bench_front.py"]
 
 
 def main() -> int:
