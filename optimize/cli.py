@@ -101,6 +101,9 @@ def build_parser() -> argparse.ArgumentParser:
     front.add_argument("run_dir", type=Path, metavar="RUN_DIR")
     front.add_argument("--storage", help="Optuna RDB URL of the campaign (default: the run's journal)")
     front.add_argument("--quiet", action="store_true")
+    front.add_argument("--pick", metavar="EXPRESSION",
+                       help='filter and rank the front, e.g. "resonance_energy_eV within 0.005 of 0.15, '
+                            'then max transmission_contrast"')
 
     tol = commands.add_parser("tolerance", help="growth-error Monte Carlo: yield and sensitivities")
     tol.add_argument("target", type=Path, metavar="STACK.toml|RUN_DIR")
@@ -167,7 +170,7 @@ def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "front":
         from tunnelsmith.optimize.commands.front import rebuild_front
 
-        return rebuild_front(args.run_dir, storage=args.storage, quiet=args.quiet)
+        return rebuild_front(args.run_dir, storage=args.storage, quiet=args.quiet, pick=args.pick)
     if args.command == "tolerance":
         from tunnelsmith.optimize.commands.tolerance import run_tolerance
 

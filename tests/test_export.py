@@ -81,3 +81,17 @@ def test_a_design_not_on_the_front_is_a_clear_error(run):
         result = tunnelsmith(command, "run", "--design", absent, "--out", f"x-{command}", cwd=directory)
         assert result.returncode == 2, result.stderr
         assert "not on the front" in result.stderr and "Traceback" not in result.stderr
+
+
+def test_front_pick_lists_the_passing_designs_from_the_command_line(run):
+    directory, designs, energy, _ = run
+    target = energy[designs[0]]
+    result = tunnelsmith("front", "run", "--pick", f"resonance_energy_eV within 1e-9 of {target!r}", cwd=directory)
+    assert result.returncode == 0, result.stderr
+    passing = [d for d in designs if abs(energy[d] - target) <= 1e-9]
+    assert f"{len(passing)} of {len(designs)} front designs pass" in result.stdout
+    assert f"trial {designs[0]}" in result.stdout
+    bad = tunnelsmith("front", "run", "--pick", "resonance_energy_eV near 1", cwd=directory)
+    assert bad.returncode == 2 and "--pick" in bad.stderr and "Traceback" not in bad.stderr
+    with xr.open_dataset(directory / "run" / "front.nc") as front:
+        assert "mirror_of" in front.data_vars

@@ -445,6 +445,12 @@ def build_datasets(study, spec, *, storage_url: str | None = None, curves: bool 
             front_vars["current_density"] = (("design", "bias"), current,
                                               _attrs("A cm-2", "current density (Tsu-Esaki)"))
     front_ds = xr.Dataset(front_vars, coords=coords, attrs=dict(attrs, title=f"Pareto front of campaign {spec.name}"))
+    from tunnelsmith.optimize.results.choice import mirror_of
+
+    twin = mirror_of(front_ds) if front_ds.sizes.get("design", 0) else np.zeros(0, int)
+    front_ds["mirror_of"] = ("design", np.where(twin >= 0, front_ds["design"].values[np.maximum(twin, 0)], -1),
+                             {"long_name": "trial number of an earlier front design that is this stack reversed "
+                                           "(-1: none)", "units": "1"})
 
     everything = np.arange(len(table.trials))
     finished, volume = table.history()
@@ -474,22 +480,36 @@ def build_datasets(study, spec, *, storage_url: str | None = None, curves: bool 
     return front_ds, trials_ds
 
 
-def _ranking(spec, front_ds: xr.Dataset) -> np.ndarray:
-    if front_ds.sizes.get("design", 0) == 0:
-        return np.zeros(0, int)
-    values = np.asarray(front_ds["objective_value"].values[:, 0], float)
-    if spec.objectives[0].direction == "maximize":
-        values = -values
-    return np.argsort(values, kind="stable")
-
-
 def _fmt(value: float) -> str:
     return "nan" if not np.isfinite(value) else f"{value:.4g}"
 
 
+def design_lines(front_ds: xr.Dataset, d: int, note: str = "") -> list[str]:
+    """The objectives and layers of front design ``d`` (index), as indented text lines."""
+    labels = [str(x) for x in front_ds["objective"].values]
+    layers = [str(x) for x in front_ds["layer"].values]
+    width = max(len(name) for name in layers)
+    number = int(front_ds["design"].values[d])
+    objectives_text = ", ".join(f"{label} = {_fmt(v)}" for label, v in zip(labels, front_ds["objective_value"].values[d]))
+    lines = [f"  trial {number}{note}: {objectives_text}"]
+    for j, name in enumerate(layers):
+        material = str(front_ds["material"].values[d, j])
+        ml = float(front_ds["monolayers"].values[d, j])
+        nm = float(front_ds["thickness_nm"].values[d, j])
+        ml_text = f"{ml:5.0f} ml" if np.isfinite(ml) and abs(ml - round(ml)) < 0.05 else f"{ml:5.1f} ml"
+        lines.append(f"      {name:<{width}}  {material:<18} {ml_text}  {nm:7.3f} nm")
+    return lines
+
+
 def summary_table(spec, front_ds: xr.Dataset, trials_ds: xr.Dataset | None = None,
                   limit: int = SUMMARY_DESIGNS) -> str:
-    """Terminal summary: the front's best designs (by the first objective) layer by layer."""
+    """Terminal summary: the balanced design, the best of each objective, then the rest.
+
+    Order: :func:`~tunnelsmith.optimize.results.choice.balanced_order` (distance to the
+    ideal point); mirror-image twins of a design already listed are left out and counted.
+    """
+    from tunnelsmith.optimize.results.choice import balanced_order, best_of_each_objective, mirror_of
+
     n_front = front_ds.sizes.get("design", 0)
     attrs = front_ds.attrs
     lines = [f'campaign "{spec.name}": {attrs.get("n_finished_trials", "?")} finished trials, '
@@ -500,22 +520,20 @@ def summary_table(spec, front_ds: xr.Dataset, trials_ds: xr.Dataset | None = Non
         lines.append("  no feasible design yet")
         return "\n".join(lines)
     labels = [str(x) for x in front_ds["objective"].values]
-    layers = [str(x) for x in front_ds["layer"].values]
-    width = max(len(name) for name in layers)
-    order = _ranking(spec, front_ds)
+    twins = mirror_of(front_ds)
+    balanced = balanced_order(front_ds)
+    notes = {int(balanced[0]): " (balanced: nearest the ideal point)"}
+    for k, d in enumerate(best_of_each_objective(front_ds)):
+        notes[d] = notes.get(d, "") + f" (best {labels[k]})"
+    order = list(dict.fromkeys([int(balanced[0]), *best_of_each_objective(front_ds), *map(int, balanced)]))
+    order = [d for d in order if twins[d] < 0]
     shown = order[:limit]
-    lines.append(f"front designs, best first by {labels[0]}:")
+    lines.append("front designs: the balanced one, the best of each objective, then by distance to the ideal point:")
     for d in shown:
-        number = int(front_ds["design"].values[d])
-        objectives_text = ", ".join(f"{label} = {_fmt(v)}"
-                                    for label, v in zip(labels, front_ds["objective_value"].values[d]))
-        lines.append(f"  trial {number}: {objectives_text}")
-        for j, name in enumerate(layers):
-            material = str(front_ds["material"].values[d, j])
-            ml = float(front_ds["monolayers"].values[d, j])
-            nm = float(front_ds["thickness_nm"].values[d, j])
-            ml_text = f"{ml:5.0f} ml" if np.isfinite(ml) and abs(ml - round(ml)) < 0.05 else f"{ml:5.1f} ml"
-            lines.append(f"      {name:<{width}}  {material:<18} {ml_text}  {nm:7.3f} nm")
-    if n_front > len(shown):
-        lines.append(f"  ... {n_front - len(shown)} more designs in front.nc")
+        lines += design_lines(front_ds, d, notes.get(d, ""))
+    hidden = int(np.count_nonzero(twins >= 0))
+    if hidden:
+        lines.append(f"  {hidden} designs are mirror images of others (the same stack reversed) and are not listed")
+    if len(order) > len(shown):
+        lines.append(f"  ... {len(order) - len(shown)} more designs in front.nc (tunnelsmith front RUN_DIR --pick ...)")
     return "\n".join(lines)
