@@ -130,6 +130,13 @@ def build_parser() -> argparse.ArgumentParser:
     export.add_argument("--substrate-side", choices=("emitter", "collector"), default="emitter",
                         help="the contact grown first, on the substrate (default: emitter)")
 
+    report = commands.add_parser("report", help="one design as an HTML page and a PDF")
+    report.add_argument("target", type=Path, metavar="STACK.toml|RUN_DIR")
+    report.add_argument("--design", type=int, help="trial number of a front design (with RUN_DIR)")
+    report.add_argument("--out", type=Path, help="output directory")
+    report.add_argument("--storage", help="Optuna RDB URL (with RUN_DIR of a database campaign)")
+    report.add_argument("--samples", type=_positive_int, help="growth samples of the tolerance study")
+
     materials = commands.add_parser("materials", help="the material table with the source of every value")
     materials.add_argument("--temperature", type=float, default=300.0, metavar="K")
     return parser
@@ -153,6 +160,11 @@ def _dispatch(args: argparse.Namespace) -> int:
         from tunnelsmith.optimize.commands.solve import run_solve
 
         return run_solve(args.stack, out_dir=args.out, design=args.design, storage=args.storage)
+    if args.command == "report":
+        from tunnelsmith.optimize.commands.report import run_report
+
+        return run_report(args.target, design=args.design, out_dir=args.out, storage=args.storage,
+                          samples=args.samples)
     if args.command == "export":
         from tunnelsmith.optimize.commands.export import run_export
 

@@ -39,7 +39,7 @@ FLOORS = {
     "tunnelsmith.optimize": 1,  # the package __init__ (a docstring)
 }
 COMMANDS = {f"tunnelsmith.optimize.commands.{name}"
-            for name in ("solve", "optimize", "front", "tolerance", "check", "materials", "export")}
+            for name in ("solve", "optimize", "front", "tolerance", "check", "materials", "export", "report")}
 INTERFACES = {"tunnelsmith.optimize.cli", "tunnelsmith.api"}
 
 

@@ -95,3 +95,38 @@ def test_front_pick_lists_the_passing_designs_from_the_command_line(run):
     assert bad.returncode == 2 and "--pick" in bad.stderr and "Traceback" not in bad.stderr
     with xr.open_dataset(directory / "run" / "front.nc") as front:
         assert "mirror_of" in front.data_vars
+
+
+def _pdf_pages(path) -> int:
+    import re
+
+    return len(re.findall(rb"/Type\s*/Page[^s]", path.read_bytes()))
+
+
+def test_report_of_a_front_design_is_one_html_page_and_a_pdf(run):
+    directory, designs, energy, _ = run
+    result = tunnelsmith("report", "run", "--design", designs[0], "--out", "rep", cwd=directory)
+    assert result.returncode == 0, result.stderr
+    page = (directory / "rep" / "report.html").read_text(encoding="utf-8")
+    figures = sorted((directory / "rep").glob("*.png"))
+    assert figures and page.count('src="data:image/png;base64,') == len(figures)
+    for heading in ("Cautions", "Stack (growth order)", "Model switches", "Figures of merit",
+                    "Objectives and constraints of the campaign"):
+        assert f"<h2>{heading}</h2>" in page
+    assert "do not replace measurements of grown wafers" in page
+    assert f"{energy[designs[0]]:.4g}" in page  # the front's resonance energy, recomputed
+    pdf = directory / "rep" / "report.pdf"
+    assert pdf.read_bytes().startswith(b"%PDF") and _pdf_pages(pdf) >= 1 + len(figures)
+
+
+def test_report_of_a_stack_with_windows_includes_its_tolerance_study(tmp_path):
+    from conftest import CAMPAIGNS
+
+    result = tunnelsmith("report", CAMPAIGNS / "filter_tolerance.toml", "--samples", "100", "--out", tmp_path / "r",
+                         cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    page = (tmp_path / "r" / "report.html").read_text(encoding="utf-8")
+    assert "<h2>Growth tolerance</h2>" in page and "100 growth samples" in page
+    assert (tmp_path / "r" / "tolerance.nc").exists()
+    campaign = tunnelsmith("report", CAMPAIGNS / "demo.toml", "--out", tmp_path / "c", cwd=tmp_path)
+    assert campaign.returncode == 2 and "report RUN_DIR --design N" in campaign.stderr
