@@ -116,6 +116,9 @@ def build_parser() -> argparse.ArgumentParser:
     check = commands.add_parser("check", help="validate a stack or campaign file and show its search space")
     check.add_argument("file", type=Path, metavar="FILE.toml")
 
+    for command in (solve, opt, front, tol):
+        command.add_argument("--no-plots", dest="plots", action="store_false",
+                             help="write the netCDF results only, no figures (faster)")
     for command in (solve, opt, tol, check):
         command.add_argument("--strict", action="store_true",
                              help="treat warnings about implausible values as errors (exit 2), for scripts")
@@ -159,7 +162,7 @@ def _dispatch(args: argparse.Namespace) -> int:
     if args.command == "solve":
         from tunnelsmith.optimize.commands.solve import run_solve
 
-        return run_solve(args.stack, out_dir=args.out, design=args.design, storage=args.storage)
+        return run_solve(args.stack, out_dir=args.out, design=args.design, storage=args.storage, plots=args.plots)
     if args.command == "report":
         from tunnelsmith.optimize.commands.report import run_report
 
@@ -177,18 +180,18 @@ def _dispatch(args: argparse.Namespace) -> int:
         timeout_s = None if args.timeout is None else parse_duration_s(args.timeout)
         return run_campaign(
             args.campaign, out_dir=args.out, trials=args.trials, timeout_s=timeout_s,
-            workers=args.workers, storage=args.storage, quiet=args.quiet,
+            workers=args.workers, storage=args.storage, quiet=args.quiet, plots=args.plots,
         )
     if args.command == "front":
         from tunnelsmith.optimize.commands.front import rebuild_front
 
-        return rebuild_front(args.run_dir, storage=args.storage, quiet=args.quiet, pick=args.pick)
+        return rebuild_front(args.run_dir, storage=args.storage, quiet=args.quiet, pick=args.pick, plots=args.plots)
     if args.command == "tolerance":
         from tunnelsmith.optimize.commands.tolerance import run_tolerance
 
         return run_tolerance(
             args.target, design=args.design, samples=args.samples, out_dir=args.out,
-            storage=args.storage, quiet=args.quiet,
+            storage=args.storage, quiet=args.quiet, plots=args.plots,
         )
     if args.command == "check":
         from tunnelsmith.optimize.commands.check import run_check

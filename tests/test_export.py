@@ -130,3 +130,25 @@ def test_report_of_a_stack_with_windows_includes_its_tolerance_study(tmp_path):
     assert (tmp_path / "r" / "tolerance.nc").exists()
     campaign = tunnelsmith("report", CAMPAIGNS / "demo.toml", "--out", tmp_path / "c", cwd=tmp_path)
     assert campaign.returncode == 2 and "report RUN_DIR --design N" in campaign.stderr
+
+
+def test_no_plots_writes_the_results_without_figures(run, tmp_path):
+    from conftest import CAMPAIGNS
+
+    directory, _, _, _ = run
+    for png in (directory / "run").glob("*.png"):
+        png.unlink()
+    front = tunnelsmith("front", "run", "--no-plots", "--quiet", cwd=directory)
+    assert front.returncode == 0, front.stderr
+    assert (directory / "run" / "front.nc").exists() and not list((directory / "run").glob("*.png"))
+    stack = CAMPAIGNS / "filter_tolerance.toml"
+    solve = tunnelsmith("solve", stack, "--no-plots", "--out", tmp_path / "s", cwd=tmp_path)
+    assert solve.returncode == 0 and (tmp_path / "s" / "solution.nc").exists()
+    tolerance = tunnelsmith("tolerance", stack, "--no-plots", "--samples", "50", "--out", tmp_path / "t",
+                            "--quiet", cwd=tmp_path)
+    assert tolerance.returncode == 0 and (tmp_path / "t" / "tolerance.nc").exists()
+    assert not list((tmp_path / "s").glob("*.png")) and not list((tmp_path / "t").glob("*.png"))
+    campaign = write_campaign(tmp_path, small_campaign("noplots", trials=32, batch=32))
+    optimize = tunnelsmith("optimize", campaign, "--out", tmp_path / "o", "--no-plots", "--quiet", cwd=tmp_path)
+    assert optimize.returncode == 0, optimize.stderr
+    assert (tmp_path / "o" / "front.nc").exists() and not list((tmp_path / "o").glob("*.png"))

@@ -12,7 +12,8 @@ from tunnelsmith.optimize.results.choice import apply_pick, mirror_of, parse_pic
 from tunnelsmith.optimize.results.front import design_lines
 
 
-def rebuild_front(run_dir, storage: str | None = None, quiet: bool = False, pick: str | None = None) -> int:
+def rebuild_front(run_dir, storage: str | None = None, quiet: bool = False, pick: str | None = None,
+                  plots: bool = True) -> int:
     """Rebuild ``front.nc``, ``trials.nc`` and plots of ``run_dir``; returns exit status 0.
 
     Reads the storage only, so it is safe while workers are still adding trials. With
@@ -20,7 +21,7 @@ def rebuild_front(run_dir, storage: str | None = None, quiet: bool = False, pick
     list of front designs that pass its filters, in its order.
     """
     chosen = parse_pick(pick) if pick is not None else None  # a bad expression fails before any work
-    rebuild_outputs(run_dir, storage=storage, quiet=quiet or chosen is not None)
+    rebuild_outputs(run_dir, storage=storage, quiet=quiet or chosen is not None, plots=plots)
     if chosen is not None:
         front = xr.load_dataset(Path(run_dir) / "front.nc")
         order = apply_pick(front, chosen)

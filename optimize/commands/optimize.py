@@ -17,7 +17,7 @@ from tunnelsmith.optimize.search.loop import run_search
 
 
 def run_campaign(path, *, out_dir=None, trials: int | None = None, timeout_s: float | None = None,
-                 workers: int = 1, storage: str | None = None, quiet: bool = False) -> int:
+                 workers: int = 1, storage: str | None = None, quiet: bool = False, plots: bool = True) -> int:
     """Start or resume the campaign of ``path``; returns the exit status (0, or 130 if interrupted).
 
     Parameters
@@ -73,7 +73,7 @@ def run_campaign(path, *, out_dir=None, trials: int | None = None, timeout_s: fl
         warnings.simplefilter("ignore", IndirectValleyWarning)
         outcome = run_search(spec, run_dir, url, budget, deadline, workers, worker_index, quiet)
     if outcome.main:
-        write_outputs(outcome.study, spec, run_dir, storage_url=url, quiet=quiet)
+        write_outputs(outcome.study, spec, run_dir, storage_url=url, quiet=quiet, plots=plots)
         if not quiet:
             why = {"budget": "budget reached", "timeout": "time limit reached", "interrupted": "interrupted"}
             print(f"{why[outcome.why]}: {outcome.finished} finished trials, results in {run_dir}", file=sys.stderr)

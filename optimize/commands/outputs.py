@@ -11,7 +11,8 @@ from tunnelsmith.optimize.results.front import build_datasets
 from tunnelsmith.optimize.results.front import summary_table
 
 
-def write_outputs(study, spec, run_dir, *, storage_url: str | None = None, quiet: bool = False) -> list[Path]:
+def write_outputs(study, spec, run_dir, *, storage_url: str | None = None, quiet: bool = False,
+                  plots: bool = True) -> list[Path]:
     """Write ``front.nc``, ``trials.nc`` and the plots into ``run_dir``; print the summary.
 
     Every file is written under a temporary name and renamed into place.
@@ -25,7 +26,7 @@ def write_outputs(study, spec, run_dir, *, storage_url: str | None = None, quiet
         from tunnelsmith.optimize.plots import plot_campaign
     except ImportError:
         plot_campaign = None
-    if plot_campaign is not None:
+    if plot_campaign is not None and plots:
         try:
             paths += list(plot_campaign(front_ds, trials_ds, run_dir))
         except Exception as error:  # a figure must not cost the campaign its results
@@ -49,7 +50,7 @@ def _find_study_name(run_dir: Path, storage) -> str:
                      "after the campaign")
 
 
-def rebuild_outputs(run_dir, storage: str | None = None, quiet: bool = False) -> list[Path]:
+def rebuild_outputs(run_dir, storage: str | None = None, quiet: bool = False, plots: bool = True) -> list[Path]:
     """Rebuild ``front.nc``, ``trials.nc`` and plots of a run from its storage alone.
 
     Reads only: safe while workers are still adding trials. The campaign text comes
@@ -89,4 +90,4 @@ def rebuild_outputs(run_dir, storage: str | None = None, quiet: bool = False) ->
     if text is not None and (not copy.exists() or copy.read_text(encoding="utf-8") != text):
         write_text(copy, text)
     spec = load(copy)
-    return write_outputs(study, spec, run_dir, storage_url=url, quiet=quiet)
+    return write_outputs(study, spec, run_dir, storage_url=url, quiet=quiet, plots=plots)

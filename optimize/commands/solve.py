@@ -13,7 +13,7 @@ from tunnelsmith.optimize.results.solution import metrics_table, solve_dataset
 
 
 def run_solve(stack_path: Path, *, out_dir: Path | None = None, design: int | None = None,
-              storage: str | None = None) -> int:
+              storage: str | None = None, plots: bool = True) -> int:
     """Entry point of ``tunnelsmith solve``; returns the exit status.
 
     ``stack_path`` is a stack file, or a campaign run directory with ``design`` (a trial
@@ -37,7 +37,7 @@ def run_solve(stack_path: Path, *, out_dir: Path | None = None, design: int | No
     path = write_netcdf(dataset, out_dir / "solution.nc")
     from tunnelsmith.optimize.plots import plot_solution
 
-    figures = plot_solution(dataset, out_dir)
+    figures = plot_solution(dataset, out_dir) if plots else []
     print(f"tunnelsmith solve: {spec.path}")
     print(metrics_table(dataset))
     print(f"\nsolution: {path}")

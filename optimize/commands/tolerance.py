@@ -61,7 +61,7 @@ def _load_stack(path: Path, design, storage):
 
 
 def run_tolerance(target, *, design: int | None = None, samples: int | None = None, out_dir=None,
-                  storage: str | None = None, quiet: bool = False) -> int:
+                  storage: str | None = None, quiet: bool = False, plots: bool = True) -> int:
     """Entry point of ``tunnelsmith tolerance``; returns the exit status.
 
     Parameters
@@ -109,7 +109,7 @@ def run_tolerance(target, *, design: int | None = None, samples: int | None = No
         from tunnelsmith.optimize.plots import plot_tolerance
     except ImportError:
         plot_tolerance = None
-    if plot_tolerance is not None:
+    if plot_tolerance is not None and plots:
         figures = plot_tolerance(dataset, out)
 
     print(f"tunnelsmith tolerance: {source}")
