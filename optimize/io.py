@@ -3,6 +3,13 @@
 Files are written to a temporary name in the destination directory and moved into
 place with :func:`os.replace`, which is atomic on POSIX file systems: a reader (or a
 campaign killed mid-write) never sees a half-written ``.nc`` or ``.png``.
+
+A writer killed mid-write leaves its temporary file behind. The temporary name says
+whose it is, ``.<name>.<host>.<pid>.<random>.part`` (e.g. ``.front.nc.node7.4711.k3j2x9_a.part``),
+and every write first removes the leftovers in its directory
+(:func:`remove_stale_parts`): those of a process of this host that no longer runs, and
+those it cannot attribute (another host's, or the earlier unattributed form
+``.<stem>.<random><suffix>.part``) once untouched for :data:`STALE_PART_AGE_S`.
 """
 
 from __future__ import annotations
@@ -10,18 +17,95 @@ from __future__ import annotations
 import contextlib
 import os
 import re
+import socket
 import tempfile
+import time
 from collections.abc import Iterator
 from datetime import datetime, timezone
 from pathlib import Path
 
 
+#: Seconds after which a temporary file whose writer cannot be checked is a leftover: no
+#: output of this program takes that long to write, and a writer keeps touching its file.
+STALE_PART_AGE_S = 3600.0
+
+
+_PART_SUFFIX = ".part"
+
+
+def process_running(pid: int) -> bool:
+    """Whether process ``pid`` of this host runs (one that exited but was not reaped does not).
+
+    A process of another user counts as running: it exists, only signals are refused.
+    """
+    if pid <= 0:
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    try:  # a zombie (exited, not yet reaped by its parent) runs no more
+        with open(f"/proc/{pid}/stat", "rb") as handle:
+            return handle.read().rsplit(b")", 1)[1].split()[0] != b"Z"
+    except (OSError, IndexError):
+        return True  # no /proc (not Linux): kill(pid, 0) succeeded, so it exists
+
+
+def _part_prefix(path: Path) -> str:
+    return f".{path.name}.{socket.gethostname()}.{os.getpid()}."
+
+
+def remove_stale_parts(directory: str | os.PathLike) -> list[Path]:
+    """Remove temporary files that killed writers left in ``directory``; returns them.
+
+    Only this program's temporary files are considered: hidden names ending in
+    ``.part``. One that names a process of this host is removed when that process no
+    longer runs, however recent; any other (another host's, or the earlier form without
+    a writer) when untouched for :data:`STALE_PART_AGE_S`. A file that cannot be
+    removed (another user's) is left alone.
+    """
+    host = socket.gethostname()
+    # Host names may contain dots, so the writer is read from the known host backwards.
+    here = re.compile(rf"\..+\.{re.escape(host)}\.(\d+)\.[^.]+{re.escape(_PART_SUFFIX)}")
+    can_check_pids = os.name == "posix"  # Windows' os.kill(pid, 0) would send Ctrl-C
+    removed = []
+    try:
+        entries = list(os.scandir(directory))
+    except OSError:
+        return removed
+    now_s = time.time()
+    for entry in entries:
+        if not (entry.name.startswith(".") and entry.name.endswith(_PART_SUFFIX)):
+            continue
+        try:
+            if not entry.is_file(follow_symlinks=False):
+                continue
+            match = here.fullmatch(entry.name)
+            if match is not None and can_check_pids:
+                stale = not process_running(int(match.group(1)))
+            else:
+                stale = now_s - entry.stat(follow_symlinks=False).st_mtime > STALE_PART_AGE_S
+            if stale:
+                os.unlink(entry.path)
+                removed.append(Path(entry.path))
+        except OSError:
+            continue  # gone already (another writer cleaned up), or not ours to remove
+    return removed
+
+
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
-    """Yield a temporary path beside ``path``; rename it onto ``path`` on success."""
+    """Yield a temporary path beside ``path``; rename it onto ``path`` on success.
+
+    The temporary name carries this host and process id, and the leftovers of killed
+    writers in the directory are removed first (:func:`remove_stale_parts`).
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f"{path.suffix}.part", dir=path.parent)
+    remove_stale_parts(path.parent)
+    handle, temporary = tempfile.mkstemp(prefix=_part_prefix(path), suffix=_PART_SUFFIX, dir=path.parent)
     os.close(handle)
     temporary = Path(temporary)
     try:

@@ -18,6 +18,11 @@ WORKER_INDEX_ENV = "TUNNELSMITH_WORKER_INDEX"
 STORAGE_ENV = "TUNNELSMITH_STORAGE"
 
 
+#: Process id of the main process that started a local worker: the worker stops when
+#: that process is gone.
+PARENT_PID_ENV = "TUNNELSMITH_PARENT_PID"
+
+
 def default_run_dir(spec) -> Path:
     """``runs/<campaign name>/`` below the current directory."""
     safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in spec.name) or "campaign"

@@ -106,6 +106,15 @@ gone — and enqueues their parameters once more (user attribute ``retry_of``; a
 ``fail_stale_trials``. Both periods can be set with the environment variables
 ``TUNNELSMITH_HEARTBEAT_S`` and ``TUNNELSMITH_GRACE_S``.
 
+A worker held up for longer than the grace period (a scheduler suspending its job with
+SIGSTOP and resuming it with SIGCONT) wakes to find its running trials failed and their
+designs retried by another worker: it drops them without writing anything more for them
+(on the journal, a batch's tells are applied in file order, so a tell that comes after
+the other worker's failure is refused in every process alike) and goes on; no design is
+counted twice. Local worker processes stop like an interrupt when their main process is
+gone: on Linux the kernel sends them SIGUSR1 when it dies (``PR_SET_PDEATHSIG``),
+elsewhere the heartbeat thread notices the changed parent process id.
+
 Interrupts
 ----------
 SIGINT or SIGTERM: stop asking, finish the batch under evaluation (a second signal
@@ -138,10 +147,10 @@ from tunnelsmith.optimize.search.layout import CAMPAIGN_COPY
 from tunnelsmith.optimize.search.progress import _Progress, _Tally
 from tunnelsmith.optimize.search.records import ATTR_DESIGN, ATTR_FAILURE, ATTR_METRICS, ATTR_REASONS, INTERNAL_ERROR, INTERRUPTED, SURPLUS, SYSTEM_WORKER, counts_toward_budget
 from tunnelsmith.optimize.search.sampler import make_sampler
-from tunnelsmith.optimize.search.storage import CoalescingJournalStorage, _is_rdb, open_storage
+from tunnelsmith.optimize.search.storage import GRACE_PERIOD_S, CoalescingJournalStorage, _is_rdb, open_storage
 from tunnelsmith.optimize.search.study import open_study
 from tunnelsmith.optimize.search.workers import _Heartbeat, _new_worker_id, _retry_stale, _start_workers, _stop_workers, _wait_workers, _worker_seed, recover_stale_trials
-from tunnelsmith.optimize.search.workers import _StopRequest
+from tunnelsmith.optimize.search.workers import _StopRequest, _PARENT_GONE, _parent_to_watch, _watch_parent
 
 
 def _json_float(value) -> float | None:
@@ -188,9 +197,14 @@ class _Worker:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             for _ in range(min(count, waiting)):  # retried designs of dead workers first
-                trials.append(self.study.ask())
-                self.storage.set_trial_system_attr(trials[-1]._trial_id, SYSTEM_WORKER, self.worker_id)
-                self.in_flight.append(trials[-1])
+                trial = self.study.ask()
+                try:
+                    self.storage.set_trial_system_attr(trial._trial_id, SYSTEM_WORKER, self.worker_id)
+                except UpdateFinishedTrialError:
+                    self.lost += 1  # held up past the grace period right after popping it
+                    continue
+                trials.append(trial)
+                self.in_flight.append(trial)
             rest = count - len(trials)
             if rest and isinstance(self.storage, CoalescingJournalStorage):
                 new_ids = self.storage.create_trials(self.study._study_id, rest, {SYSTEM_WORKER: self.worker_id})
@@ -210,11 +224,17 @@ class _Worker:
             self.heartbeat.track(t._trial_id for t in trials)
             if _is_rdb(self.storage):
                 self.heartbeat.beat()
+            taken = []
             for trial in trials:
-                space.suggest(trial, self.spec, self.distributions)
+                try:
+                    space.suggest(trial, self.spec, self.distributions)
+                except UpdateFinishedTrialError:
+                    taken.append(trial)
+            for trial in taken:
+                self._drop(trial)
         if isinstance(self.storage, CoalescingJournalStorage):
             self.storage.flush()  # parameters on file before the (long) evaluation: retryable
-        return trials
+        return [t for t in trials if t not in taken]
 
     def _reseed(self, first_number: int) -> None:
         # Workers started together on an empty study see the same trials when they seed
@@ -239,6 +259,28 @@ class _Worker:
 
     # -- telling ------------------------------------------------------------------------
 
+    def _taken(self, trial: optuna.Trial) -> bool:
+        """Whether another worker has failed this worker's running ``trial`` as stale.
+
+        That happens when this process was held up (suspended by a scheduler, swapped
+        out) for longer than the grace period: its heartbeat lapsed, another worker
+        failed its running trials and enqueued their designs again.
+        """
+        return self.storage.get_trial(trial._trial_id).state.is_finished()
+
+    def _drop(self, trial: optuna.Trial) -> None:
+        """Forget a trial taken by another worker: nothing more is written for it."""
+        self.lost += 1
+        if trial in self.in_flight:
+            self.in_flight.remove(trial)
+        self.heartbeat.untrack([trial._trial_id])
+
+    def _note_lost(self, before: int) -> None:
+        if self.lost > before:
+            print(f"note: {self.lost - before} trials of this worker were failed by another worker while this "
+                  f"one was held up (no heartbeat for more than {GRACE_PERIOD_S} s); their designs are "
+                  "retried there, and this worker drops them and goes on", file=sys.stderr, flush=True)
+
     def _finish(self, trial: optuna.Trial, values=None, state=None) -> None:
         from optuna.study._tell import _tell_with_warning
 
@@ -246,6 +288,12 @@ class _Worker:
             _tell_with_warning(self.study, trial, values, state, suppress_warning=True)
         except UpdateFinishedTrialError:
             self.lost += 1  # failed as stale by another worker meanwhile; it retries the design
+        except ValueError:
+            # Optuna refuses to tell a trial it reads as finished ("Cannot tell a FAIL
+            # trial"): taken by another worker since the last look. Anything else is ours.
+            if not self._taken(trial):
+                raise
+            self.lost += 1
         finally:
             if trial in self.in_flight:
                 self.in_flight.remove(trial)
@@ -273,21 +321,31 @@ class _Worker:
     def _tell(self, trials: list[optuna.Trial], batch, result) -> None:
         names = batch.material_names()
         for i, trial in enumerate(trials):
-            trial.set_user_attr(ATTR_DESIGN, {
-                "material": [str(name) for name in names[i]],
-                "fraction": [_json_float(x) for x in batch.fraction[i]],
-                "thickness_nm": [float(x) for x in batch.thickness_nm[i]],
-            })
-            trial.set_user_attr(ATTR_METRICS, {label: _json_float(v[i]) for label, v in result.metrics.items()})
-            reasons = {label: str(r[i]) for label, r in result.reasons.items() if r[i]}
-            if reasons:
-                trial.set_user_attr(ATTR_REASONS, reasons)
-            if result.failure[i]:
-                trial.set_user_attr(ATTR_FAILURE, str(result.failure[i]))
-                self._finish(trial, state=TrialState.FAIL)
+            # A trial another worker failed during the evaluation is dropped before any
+            # write: its design is retried there and must not count twice.
+            if self._taken(trial):
+                self._drop(trial)
                 continue
-            for key, value in zip(self.constraint_keys, result.constraints[i]):
-                trial.set_constraint(key, float(value))
+            try:
+                trial.set_user_attr(ATTR_DESIGN, {
+                    "material": [str(name) for name in names[i]],
+                    "fraction": [_json_float(x) for x in batch.fraction[i]],
+                    "thickness_nm": [float(x) for x in batch.thickness_nm[i]],
+                })
+                trial.set_user_attr(ATTR_METRICS, {label: _json_float(v[i]) for label, v in result.metrics.items()})
+                reasons = {label: str(r[i]) for label, r in result.reasons.items() if r[i]}
+                if reasons:
+                    trial.set_user_attr(ATTR_REASONS, reasons)
+                if result.failure[i]:
+                    trial.set_user_attr(ATTR_FAILURE, str(result.failure[i]))
+                    self._finish(trial, state=TrialState.FAIL)
+                    continue
+                for key, value in zip(self.constraint_keys, result.constraints[i]):
+                    trial.set_constraint(key, float(value))
+            except UpdateFinishedTrialError:
+                # A database refuses the write: failed since the look above.
+                self._drop(trial)
+                continue
             self._finish(trial, values=[float(v) for v in result.objectives[i]])
 
     # -- the loop -----------------------------------------------------------------------
@@ -323,6 +381,7 @@ class _Worker:
     def run_batch(self, count: int, waiting: int, check_surplus: bool = True) -> None:
         from tunnelsmith.optimize.model.objectives import evaluate_batch
 
+        lost_before = self.lost
         trials = self._ask(count, waiting)
         if check_surplus:
             trials = self._drop_surplus(trials)
@@ -330,6 +389,7 @@ class _Worker:
             self._abandon(trials, INTERRUPTED)
             return
         if not trials:
+            self._note_lost(lost_before)
             return
         batch = space.batch_from_params(self.spec, [t.params for t in trials])
         with warnings.catch_warnings():
@@ -337,6 +397,7 @@ class _Worker:
             result = evaluate_batch(self.spec, batch)
         with self._commit():
             self._tell(trials, batch, result)
+        self._note_lost(lost_before)
 
 
 def run_search(spec, run_dir: Path, url: str | None, budget: int, deadline: float | None, workers: int,
@@ -359,10 +420,16 @@ def run_search(spec, run_dir: Path, url: str | None, budget: int, deadline: floa
     if main:
         write_text(run_dir / CAMPAIGN_COPY, spec.text)
 
+    parent_pid = _parent_to_watch(worker_index)
     stop = _StopRequest()
     stop.install()
+    if parent_pid is not None:
+        # A worker of `--workers N` must not outlive its main process (killed, or its
+        # job ended): it would go on spending the budget with nobody to write results.
+        _watch_parent(parent_pid, stop)
     worker_id = _new_worker_id()
-    heartbeat = _Heartbeat(store, study._study_id, worker_id)
+    heartbeat = _Heartbeat(store, study._study_id, worker_id, parent_pid=parent_pid,
+                           on_orphaned=lambda: stop.request(_PARENT_GONE))
     progress = _Progress(budget, deadline, quiet, worker_index)
     worker = _Worker(spec, study, store, budget, spec.search.batch, deadline, worker_id, stop, progress, heartbeat,
                      sampler_for)

@@ -78,8 +78,12 @@ class CoalescingJournalStorage(JournalStorage):
     in one append (one lock, one write). :meth:`create_trials` creates a batch of running
     trials with one append. Inside :meth:`batch_commit`, final states are queued too, so
     a whole batch of tells — parameters, metrics, constraint values, states — reaches the
-    file in one append: each trial is committed whole or not at all. The file is an
-    ordinary Optuna journal that any Optuna reader replays.
+    file in one append: each trial is committed whole or not at all. There nothing is
+    applied ahead of the file: the replay of the append applies it, so an update of a
+    trial that another worker failed as stale before it (its worker was frozen past the
+    grace period) is refused here as in every other reader, and :attr:`lost_trials`
+    counts the refused logs. The file is an ordinary Optuna journal that any Optuna
+    reader replays.
     """
 
     def __init__(self, log_storage) -> None:
@@ -99,7 +103,14 @@ class CoalescingJournalStorage(JournalStorage):
     def _defer(self, op_code: int, fields: dict[str, Any], apply) -> None:
         with self._thread_lock:
             log = self._log(op_code, fields)
-            apply(log)
+            if not self._queue_final_states:
+                # Applied now so that this process sees parameters at once. A trial this
+                # view already shows finished raises UpdateFinishedTrialError here and
+                # nothing is queued: the file never receives an update it would refuse.
+                apply(log)
+            # Inside a batch commit the replay of the append applies the log, in file
+            # order: when another worker failed the trial as stale before this append,
+            # the update is dropped in this process exactly as in every other one.
             self._pending.append(log)
 
     def _sync_with_backend(self) -> None:

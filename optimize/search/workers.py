@@ -18,7 +18,8 @@ import numpy as np
 import optuna
 from optuna.exceptions import UpdateFinishedTrialError
 from optuna.trial import FrozenTrial, TrialState
-from tunnelsmith.optimize.search.layout import STORAGE_ENV, WORKER_INDEX_ENV
+from tunnelsmith.optimize.io import process_running
+from tunnelsmith.optimize.search.layout import PARENT_PID_ENV, STORAGE_ENV, WORKER_INDEX_ENV
 from tunnelsmith.optimize.search.records import ATTR_RETRIES, ATTR_RETRY_OF, SYSTEM_WORKER, _BEAT_PREFIX
 from tunnelsmith.optimize.search.storage import GRACE_PERIOD_S, HEARTBEAT_INTERVAL_S, _is_rdb
 
@@ -42,24 +43,29 @@ def _local_worker_gone(worker_id: str) -> bool:
         return False
     if pid == os.getpid():
         return True  # an earlier process that had our pid: not us, so gone
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return True
-    except PermissionError:
-        return False
-    try:  # a zombie (exited, not yet reaped by its parent) is gone too
-        with open(f"/proc/{pid}/stat", "rb") as handle:
-            return handle.read().rsplit(b")", 1)[1].split()[0] == b"Z"
-    except (OSError, IndexError):
-        return False
+    return not process_running(pid)
 
 
 class _Heartbeat:
-    """Daemon thread recording this worker's heartbeat every :data:`HEARTBEAT_INTERVAL_S`."""
+    """Daemon thread recording this worker's heartbeat every :data:`HEARTBEAT_INTERVAL_S`.
 
-    def __init__(self, storage, study_id: int, worker_id: str) -> None:
+    Parameters
+    ----------
+    storage, study_id, worker_id
+        Where the beats go and whose they are.
+    parent_pid : int, optional
+        The main process of a local worker: at every beat the thread checks that it is
+        still this process's parent, and calls ``on_orphaned`` once when it is not
+        (the portable way to notice; on Linux the kernel's parent-death signal is
+        usually first, see :func:`_watch_parent`).
+    on_orphaned : callable, optional
+        Called from this thread, without arguments, when the parent is gone.
+    """
+
+    def __init__(self, storage, study_id: int, worker_id: str, parent_pid: int | None = None,
+                 on_orphaned=None) -> None:
         self._storage, self._study_id, self._worker_id = storage, study_id, worker_id
+        self._parent_pid, self._on_orphaned = parent_pid, on_orphaned
         self._trial_ids: set[int] = set()
         self._lock = threading.Lock()
         self._stop = threading.Event()
@@ -95,7 +101,75 @@ class _Heartbeat:
 
     def _run(self) -> None:
         while not self._stop.wait(HEARTBEAT_INTERVAL_S):
+            if self._parent_pid is not None and _parent_gone(self._parent_pid):
+                self._parent_pid = None  # once is enough
+                if self._on_orphaned is not None:
+                    self._on_orphaned()
             self.beat()
+
+
+def _parent_gone(parent_pid: int) -> bool:
+    """Whether the process that started this one has exited.
+
+    An orphan is adopted by init or by the nearest subreaper, so its parent id changes;
+    the old id may since have been given to another process, which is why the parent id
+    is compared rather than the old process probed.
+    """
+    return os.getppid() != parent_pid
+
+
+def _parent_to_watch(worker_index: int) -> int | None:
+    """The main process a local worker belongs to (``TUNNELSMITH_PARENT_PID``), else None.
+
+    Only workers started by ``--workers N`` carry it; workers started by hand or by a
+    scheduler have no main process to outlive.
+    """
+    text = os.environ.get(PARENT_PID_ENV, "").strip()
+    if worker_index == 0 or not text.isdigit():
+        return None
+    return int(text)
+
+
+#: ``prctl`` option of Linux: the signal this process receives when its parent dies.
+_PR_SET_PDEATHSIG = 1
+
+
+#: The parent-death signal. Not SIGTERM: the kernel sends it again each time the child
+#: is handed on (to another thread of the dying parent, then to init), and a second
+#: SIGTERM would abandon the batch, whereas every SIGUSR1 only asks for the one stop.
+PARENT_DEATH_SIGNAL = getattr(signal, "SIGUSR1", None)
+
+
+_PARENT_GONE = "the main process of this worker is gone"
+
+
+def _watch_parent(parent_pid: int, stop: "_StopRequest") -> None:
+    """Stop this worker like an interrupt when its main process dies.
+
+    On Linux the kernel signals the moment the parent dies (``prctl`` with
+    ``PR_SET_PDEATHSIG``, through :mod:`ctypes`, with :data:`PARENT_DEATH_SIGNAL`);
+    elsewhere, or where that is refused, the heartbeat thread's check of the parent id
+    notices within one heartbeat interval. The parent-death signal follows the *thread*
+    that started the child: the main process starts its workers from the thread that
+    waits for them, so it outlives them. Call from the main thread (signal handlers are
+    installed there only; elsewhere the heartbeat's check remains).
+    """
+    if (sys.platform.startswith("linux") and PARENT_DEATH_SIGNAL is not None
+            and threading.current_thread() is threading.main_thread()):
+        import ctypes
+
+        # Installed before the request, for good: the signal's default action ends the
+        # process, and a late notice must never do that.
+        signal.signal(PARENT_DEATH_SIGNAL, lambda signum, frame: stop.request(_PARENT_GONE))
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(ctypes.c_int(_PR_SET_PDEATHSIG), ctypes.c_ulong(int(PARENT_DEATH_SIGNAL)),
+                       ctypes.c_ulong(0), ctypes.c_ulong(0), ctypes.c_ulong(0))
+        except (OSError, AttributeError):
+            pass  # no prctl here: the heartbeat's check of the parent id remains
+    # A parent that died before the request above sends no signal any more.
+    if _parent_gone(parent_pid):
+        stop.request(_PARENT_GONE)
 
 
 def _retry_stale(study, trial: FrozenTrial) -> None:
@@ -168,7 +242,7 @@ def _start_workers(count: int, spec, run_dir: Path, url: str | None, budget: int
                    "--out", str(run_dir.resolve()), "--trials", str(budget), "--workers", "1", "--quiet"]
         if deadline is not None:
             command += ["--timeout", f"{max(1.0, deadline - time.monotonic()):.0f}s"]
-        env = dict(os.environ, **{WORKER_INDEX_ENV: str(index)})
+        env = dict(os.environ, **{WORKER_INDEX_ENV: str(index), PARENT_PID_ENV: str(os.getpid())})
         if url:
             env[STORAGE_ENV] = url  # not on the command line, where `ps` would show it
         log = open(run_dir / f"worker-{index}.log", "ab")
@@ -206,10 +280,15 @@ def _wait_workers(children, stop: _StopRequest, forwarded: bool) -> list[int]:
 
 
 class _StopRequest:
-    """SIGINT/SIGTERM: the first asks the loop to stop; a second abandons the batch."""
+    """SIGINT/SIGTERM: the first asks the loop to stop; a second abandons the batch.
+
+    :meth:`request` asks for the same stop without a signal (a worker whose main
+    process is gone); any number of requests count as one.
+    """
 
     def __init__(self) -> None:
         self.signal: int | None = None
+        self.reason: str | None = None
         self._previous: dict[int, Any] = {}
 
     def install(self) -> None:
@@ -224,13 +303,26 @@ class _StopRequest:
         self._previous.clear()
 
     def _handle(self, signum, frame) -> None:
-        if self.signal is None:
+        if not self.requested:
             self.signal = signum
             print(f"\n{signal.Signals(signum).name}: finishing the current batch, then writing results "
                   "(signal again to abandon the batch)", file=sys.stderr, flush=True)
             return
         raise KeyboardInterrupt
 
+    def request(self, reason: str) -> None:
+        """Ask the loop to stop as a first signal does, from any thread or signal handler.
+
+        Only the first request is announced. The announcement is one raw write to the
+        standard error descriptor: a signal handler may interrupt the main thread in the
+        middle of a ``print`` to the same stream, where a second ``print`` would fail.
+        """
+        if self.requested:
+            return
+        self.reason = reason
+        with contextlib.suppress(OSError):
+            os.write(2, f"\n{reason}: finishing the current batch, then stopping\n".encode())
+
     @property
     def requested(self) -> bool:
-        return self.signal is not None
+        return self.signal is not None or self.reason is not None
