@@ -206,7 +206,18 @@ def _dispatch(args: argparse.Namespace) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``tunnelsmith`` console script."""
+    import signal
+    import threading
+
+    from tunnelsmith.optimize.io import stop_at_once
+
     args = build_parser().parse_args(argv)
+    # Any SIGINT/SIGTERM ends with exit 130 and no half-written file: at once in every
+    # phase but the campaign loop (which finishes its batch) and the output phase (which
+    # finishes its files); both install their own handlers and restore these.
+    previous = {}
+    if threading.current_thread() is threading.main_thread():
+        previous = {signum: signal.signal(signum, stop_at_once) for signum in (signal.SIGINT, signal.SIGTERM)}
     try:
         return _dispatch(args)
     except InputError as error:
@@ -222,6 +233,9 @@ def main(argv: list[str] | None = None) -> int:
         # The reader went away (e.g. `| head`): not an error of ours.
         sys.stderr.close()
         return EXIT_OK
+    finally:
+        for signum, handler in previous.items():
+            signal.signal(signum, handler)
 
 
 if __name__ == "__main__":

@@ -108,6 +108,7 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     handle, temporary = tempfile.mkstemp(prefix=_part_prefix(path), suffix=_PART_SUFFIX, dir=path.parent)
     os.close(handle)
     temporary = Path(temporary)
+    _WritingState.temporaries.add(temporary)
     try:
         yield temporary
         # mkstemp creates owner-only files; give results the usual umask permissions.
@@ -117,6 +118,7 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
         os.replace(temporary, path)
     finally:
         temporary.unlink(missing_ok=True)
+        _WritingState.temporaries.discard(temporary)
 
 
 def write_netcdf(dataset, path: str | os.PathLike) -> Path:
@@ -175,3 +177,104 @@ def netcdf_name(label: str) -> str:
     text = label.replace("@", "_at_").replace(".", "p").replace("-", "m").replace("+", "")
     text = _NOT_NAME.sub("_", text).strip("_")
     return text if text and not text[0].isdigit() else f"m_{text}"
+
+
+class _WritingState:
+    """What the output phase's signal handler must know: temporaries alive, renames running."""
+
+    temporaries: set[Path] = set()
+    renaming = False
+    stop_after_renames = False
+
+
+def _stop_now(message: str) -> None:
+    """End the process at once (exit 130): own temporaries removed, complete files kept.
+
+    A raised exception could land inside the netCDF library and leave its state (and
+    its lock) half-way; the writing is abandoned instead. Nothing else is written
+    during the output phase, so nothing is lost.
+    """
+    from tunnelsmith.optimize.errors import EXIT_INTERRUPTED
+
+    for temporary in list(_WritingState.temporaries):
+        with contextlib.suppress(OSError):
+            temporary.unlink()
+    with contextlib.suppress(OSError):
+        os.write(2, message.encode())
+    os._exit(EXIT_INTERRUPTED)
+
+
+@contextlib.contextmanager
+def atomic_group(paths) -> Iterator[list[Path]]:
+    """Temporaries for several files, renamed into place together once all are written.
+
+    An exception (or interrupt) before the end renames none of them: the previous
+    complete files stay as they were, so files that belong together (``front.nc`` and
+    ``trials.nc``) never mix two runs. A stop signal during the renames waits for them.
+    """
+    with contextlib.ExitStack() as stack:
+        temporaries = [stack.enter_context(atomic_path(path)) for path in paths]
+        yield temporaries
+        _WritingState.renaming = True
+        stack.callback(setattr, _WritingState, "renaming", False)
+    if _WritingState.stop_after_renames:
+        _stop_now("stopped after writing the results\n")
+
+
+
+
+def stop_at_once(signum: int, frame) -> None:
+    """SIGINT/SIGTERM handler outside the campaign loop and the output phase: exit 130 now.
+
+    Raising KeyboardInterrupt from a handler can land where it is swallowed (a
+    destructor, a callback) or outside any handler; ending the process is reliable, and
+    every file is written atomically, so nothing is left half-written.
+    """
+    import signal
+
+    _stop_now(f"\n{signal.Signals(signum).name}: interrupted; no file was left half-written "
+              "(for a campaign, `tunnelsmith front RUN_DIR` rebuilds its outputs)\n")
+
+
+@contextlib.contextmanager
+def interrupts_deferred(rebuild_hint: str) -> Iterator[None]:
+    """While results are written, a first SIGINT/SIGTERM waits for the writing to finish.
+
+    The first signal is announced and held: the block runs to its end and then
+    KeyboardInterrupt is raised (the command exits 130 with complete results). A second
+    signal ends the process at once with exit 130 (:func:`_stop_now`); files written
+    atomically are then either complete or untouched, and the message names
+    ``rebuild_hint``, the command that rebuilds them. Outside the main thread this is a no-op (signals go to the main thread).
+    """
+    import signal
+    import sys
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    received: list[int] = []
+
+    def handle(signum, frame) -> None:
+        received.append(signum)
+        name = signal.Signals(signum).name
+        if len(received) == 1:
+            with contextlib.suppress(OSError):
+                os.write(2, f"\n{name}: finishing the results first (signal again to stop now)\n".encode())
+            return
+        message = (f"\n{name}: stopped while writing results; the files written so far are complete and the "
+                   f"others are as before. `{rebuild_hint}` rebuilds them\n")
+        if _WritingState.renaming:
+            _WritingState.stop_after_renames = True  # a pair of renames is never split
+            return
+        _stop_now(message)
+
+    previous = {signum: signal.signal(signum, handle) for signum in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield
+    finally:
+        for signum, handler in previous.items():
+            signal.signal(signum, handler)
+    if received:
+        sys.stderr.flush()
+        raise KeyboardInterrupt

@@ -15,22 +15,29 @@ def write_outputs(study, spec, run_dir, *, storage_url: str | None = None, quiet
                   plots: bool = True) -> list[Path]:
     """Write ``front.nc``, ``trials.nc`` and the plots into ``run_dir``; print the summary.
 
-    Every file is written under a temporary name and renamed into place.
+    Every file is written under a temporary name and renamed into place; ``front.nc``
+    and ``trials.nc`` are renamed together. A first SIGINT/SIGTERM meanwhile lets the
+    writing finish (then exit 130); a second stops it with the previous files untouched.
     """
-    from tunnelsmith.optimize.io import write_netcdf
+    from tunnelsmith.optimize.io import atomic_group, interrupts_deferred
 
     run_dir = Path(run_dir)
-    front_ds, trials_ds = build_datasets(study, spec, storage_url=storage_url)
-    paths = [write_netcdf(front_ds, run_dir / "front.nc"), write_netcdf(trials_ds, run_dir / "trials.nc")]
-    try:
-        from tunnelsmith.optimize.plots import plot_campaign
-    except ImportError:
-        plot_campaign = None
-    if plot_campaign is not None and plots:
+    with interrupts_deferred(f"tunnelsmith front {run_dir}"):
+        front_ds, trials_ds = build_datasets(study, spec, storage_url=storage_url)
+        paths = [run_dir / "front.nc", run_dir / "trials.nc"]
+        # Both files or neither: a front and a trial table always describe the same trials.
+        with atomic_group(paths) as temporaries:
+            for dataset, temporary in zip((front_ds, trials_ds), temporaries):
+                dataset.to_netcdf(temporary, engine="netcdf4")
         try:
-            paths += list(plot_campaign(front_ds, trials_ds, run_dir))
-        except Exception as error:  # a figure must not cost the campaign its results
-            print(f"warning: plots not drawn ({type(error).__name__}: {error})", file=sys.stderr)
+            from tunnelsmith.optimize.plots import plot_campaign
+        except ImportError:
+            plot_campaign = None
+        if plot_campaign is not None and plots:
+            try:
+                paths += list(plot_campaign(front_ds, trials_ds, run_dir))
+            except Exception as error:  # a figure must not cost the campaign its results
+                print(f"warning: plots not drawn ({type(error).__name__}: {error})", file=sys.stderr)
     if not quiet:
         print(summary_table(spec, front_ds, trials_ds))
     return paths
