@@ -51,7 +51,7 @@ sys.path.insert(0, str(ROOT))
 import numpy as np  # noqa: E402
 import optuna  # noqa: E402
 
-from tunnelsmith.optimize.commands import optimize
+from tunnelsmith.optimize.commands import campaign_run as optimize
 
 from tunnelsmith.optimize.search import loop
 

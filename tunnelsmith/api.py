@@ -63,7 +63,7 @@ def transmission(spec_or_path, energy_eV=None, bias_V=0.0) -> xr.DataArray:
 def run_campaign(path, *, out_dir=None, trials: int | None = None, timeout_s: float | None = None,
                  workers: int = 1, storage: str | None = None, quiet: bool = True) -> xr.Dataset:
     """Start or resume the campaign of ``path`` and return its Pareto front (``front.nc``)."""
-    from tunnelsmith.optimize.commands.optimize import run_campaign as run
+    from tunnelsmith.optimize.commands.campaign_run import run_campaign as run
     from tunnelsmith.optimize.search.layout import default_run_dir
 
     run(path, out_dir=out_dir, trials=trials, timeout_s=timeout_s, workers=workers, storage=storage, quiet=quiet)
