@@ -59,7 +59,7 @@ from tunnelsmith.optimize.search import records
 
 from tunnelsmith.optimize.search import sampler as sampler_module
 
-from tunnelsmith.optimize.search import storage
+from tunnelsmith.optimize.search import storage as storage_module
 from tunnelsmith.optimize.model import objectives
 from tunnelsmith.optimize.model import space
 from tunnelsmith.optimize.inputs.reader import load  # noqa: E402
@@ -153,7 +153,7 @@ def campaign_throughput(path: Path, trials: int, label: str) -> dict:
             total = time.perf_counter() - start
         assert code == 0
         finished = len([t for t in optuna.load_study(study_name=load(path).name,
-                                                       storage=storage.open_storage(run_dir, writer=False)).trials
+                                                       storage=storage_module.open_storage(run_dir, writer=False)).trials
                         if records.counts_toward_budget(t)])
     finally:
         shutil.rmtree(run_dir, ignore_errors=True)
@@ -222,7 +222,7 @@ def workers_throughput(path: Path, trials: int, workers: int, storage: str | Non
                         "--trials", str(trials), "--workers", str(workers), "--quiet", *extra],
                        check=True, cwd=ROOT, capture_output=True)
         study = optuna.load_study(study_name=load(path).name,
-                                  storage=storage or storage.open_storage(run_dir, writer=False))
+                                  storage=storage or storage_module.open_storage(run_dir, writer=False))
         done = [t for t in study.trials if records.counts_toward_budget(t)]
         first = min(t.datetime_start for t in study.trials)
         last = max(t.datetime_complete for t in done)

@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 from tunnelsmith.physics import materials as _materials
+from tunnelsmith.optimize.inputs import limits
 from tunnelsmith.optimize.inputs.dimensions import monolayer_span_nm, _count_designs, design_count, search_dimensions
 from tunnelsmith.optimize.inputs.schema import Choices, ContactSpec, FloatRange, IntRange, LayerSpec, StackSpec
 from tunnelsmith.optimize.inputs.tables import _fmt
@@ -73,7 +74,7 @@ def describe(spec: StackSpec) -> str:
     Lists temperature, contacts, every layer (material or choices, fraction, thickness as
     a range in monolayers and in nm), the search space with the size of each dimension
     and the number of distinct designs, objectives, constraints, the computations they
-    need, search and tolerance settings, and warnings.
+    need and the memory of the largest one, search and tolerance settings, and warnings.
     """
     kind = "campaign" if spec.is_campaign else "stack"
     lines = [f'{kind} "{spec.name}" ({spec.path}, sha256 {spec.sha256[:12]})']
@@ -139,6 +140,9 @@ def describe(spec: StackSpec) -> str:
             f"search: sampler {search.sampler}, {search.trials:,} trials in batches of {search.batch}{extras}"
         )
     lines.append(f"computation: {_computation_text(spec)}")
+    largest = max(limits.run_steps(spec), key=lambda step: step.bytes)
+    lines.append(f"memory: at most about {limits.bytes_text(largest.bytes)} per process (largest step: "
+                 f"{largest.command}, {largest.what})")
 
     tolerance = spec.tolerance
     if tolerance is not None:

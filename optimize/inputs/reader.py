@@ -25,12 +25,16 @@ Units follow the key names: eV, nm, monolayers (ml), K, V, cm^-3, A/cm^2.
 from __future__ import annotations
 
 import math
+import os
 import re
+import stat
 import tomllib
+import unicodedata
 import warnings
 from dataclasses import replace
 from pathlib import Path
 from tunnelsmith.optimize.errors import InputError
+from tunnelsmith.optimize.inputs import limits
 from tunnelsmith.physics import materials as _materials
 from tunnelsmith.physics.metrics import CATALOGUE as METRICS
 from tunnelsmith.optimize.inputs.dimensions import design_count
@@ -99,6 +103,57 @@ _GOALS = ("maximize", "minimize")
 _STATISTICS = ("quantile", "mean")
 
 
+#: Largest file read. A campaign of the most layers allowed (limits.MAX_LAYERS), one key
+#: per line with a comment on every line, stays under 150 kB; a file beyond this is not
+#: a stack file, and reading it (or parsing it, ~1.4 MB/s) would only delay the answer.
+MAX_FILE_BYTES = 512 * 2**10
+
+#: Special files and what they are called in messages; none of them is read, because a
+#: FIFO blocks until a writer comes and a device such as /dev/zero never ends.
+_SPECIAL_FILES = (
+    (stat.S_ISFIFO, "a FIFO (named pipe)"),
+    (stat.S_ISCHR, "a character device"),
+    (stat.S_ISBLK, "a block device"),
+    (stat.S_ISSOCK, "a socket"),
+)
+
+#: Scatter of the growth model beyond which it no longer describes a tolerance: the
+#: thing itself is unknown. Calibrated molecular-beam epitaxy has +-1 monolayer
+#: interface steps, a 1-2 % growth-rate drift and fractions known to ~0.005 (common
+#: practice; the defaults of ToleranceSpec). At growth_rate_sigma = 0.5 the factor
+#: 1 + eps is already negative (clipped to zero thickness) in 2.3 % of the samples.
+MAX_THICKNESS_SIGMA_ml = 5.0
+MAX_GROWTH_RATE_SIGMA = 0.5
+MAX_FRACTION_SIGMA = 0.1
+
+#: Thickest single layer: beyond 10 um a layer is a substrate or a bulk region, not a
+#: layer of a tunnelling stack (common practice; the model already warns past 50 nm).
+#: In monolayers: 40 000 ml is 11-13 um for monolayers of 0.28-0.33 nm.
+MAX_LAYER_nm = 10_000.0
+MAX_LAYER_ml = 40_000
+
+#: Seeds go to numpy's legacy generator inside Optuna's samplers, which takes 32-bit
+#: unsigned seeds only (a larger one is a ValueError there); the tolerance seed is
+#: stored as a netCDF attribute and kept in the same range.
+MAX_SEED = 2**32 - 1
+
+#: Longest [search] timeout_h: a year, as for --timeout on the command line; anything
+#: longer is a typo and overflows the deadline arithmetic.
+MAX_TIMEOUT_h = 366 * 24.0
+
+#: A user material's conduction-band mass and cubic lattice constant: beyond these it is
+#: no semiconductor, and both feed the sizes of a run (thicknesses in monolayers, the
+#: number of levels a layer holds).
+MAX_USER_MASS = 10.0
+MAX_USER_LATTICE_nm = 1.0
+_USER_MASS_REASON = ("conduction-band effective masses lie between about 0.01 m0 (InSb) and 2 m0 (the heavy "
+                     "valleys), common practice")
+_USER_LATTICE_REASON = ("cubic lattice constants of semiconductors lie between 0.36 nm (diamond, BN) and 0.65 nm "
+                        "(InSb, HgTe), common practice")
+_LAYER_REASON = ("a layer thicker than 10 µm is a substrate or a bulk region, not a layer of a tunnelling "
+                 "stack (common practice)")
+_SEED_REASON = "seeds are 32-bit unsigned integers (the random generators of the samplers take no larger one)"
+
 #: The temperature of a file without ``temperature_K`` (announced as a warning).
 DEFAULT_TEMPERATURE_K = 300.0
 #: Above this the material parameters and Fermi integrals lose all meaning: refused.
@@ -148,8 +203,28 @@ def load(path) -> StackSpec:
 
 
 def _read_text(path: Path) -> str:
-    file = str(path)
-    if path.is_dir():
+    """The file's text, refused before reading when it is no regular file or too large.
+
+    A FIFO or a device is never opened (a FIFO would block until a writer comes,
+    /dev/zero never ends); the file is opened without blocking and its type checked
+    again on the open descriptor, in case it was replaced in between; at most
+    :data:`MAX_FILE_BYTES` + 1 bytes are read. A UTF-8 byte-order mark is dropped.
+    """
+    file = str(path).replace("\0", "\\0")
+    try:
+        info = os.stat(path)
+    except FileNotFoundError:
+        raise InputError(
+            file, None, "no such file", "check the path and the spelling of the file name"
+        ) from None
+    except ValueError:
+        raise InputError(
+            file, None, "the path holds a NUL character, which no file name can hold",
+            "give the path of a stack or campaign .toml file",
+        ) from None
+    except OSError as exc:
+        raise _unreadable(file, exc) from None
+    if stat.S_ISDIR(info.st_mode):
         found = sorted(p.name for p in path.glob("*.toml"))
         hint = f"; it holds {', '.join(found)}" if found else ""
         raise InputError(
@@ -158,16 +233,42 @@ def _read_text(path: Path) -> str:
             f"this is a directory, not a file{hint}",
             "give the path of a stack or campaign .toml file",
         )
+    _check_regular(file, info)
     try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError(
-            file, None, "no such file", "check the path and the spelling of the file name"
-        ) from None
+        descriptor = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
     except OSError as exc:
+        raise _unreadable(file, exc) from None
+    try:
+        _check_regular(file, os.fstat(descriptor))
+        chunks, size = [], 0
+        while size <= MAX_FILE_BYTES:
+            chunk = os.read(descriptor, MAX_FILE_BYTES + 1 - size)
+            if not chunk:
+                break
+            chunks.append(chunk)
+            size += len(chunk)
+    except OSError as exc:
+        raise _unreadable(file, exc) from None
+    finally:
+        os.close(descriptor)
+    raw = b"".join(chunks)
+    if len(raw) > MAX_FILE_BYTES:
+        # The file grew after it was looked at, or reports no size (/proc).
+        raise _too_large(file, len(raw), at_least=True)
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
         raise InputError(
-            file, None, f"cannot read the file ({exc.strerror})", "check that the file exists and is readable"
-        ) from None
+            file, None, "the file is UTF-16 text (it starts with a UTF-16 byte-order mark)",
+            "save the file as UTF-8 text (in most editors: Save as, encoding UTF-8)",
+        )
+    nul = raw.find(b"\0")
+    if nul >= 0:
+        # TOML forbids NUL; UTF-16 text without a byte-order mark shows as every other byte 0.
+        raise InputError(
+            file,
+            None,
+            f"the file holds a NUL byte at offset {nul}, so it is binary data or UTF-16 text",
+            "give the path of a stack or campaign .toml file saved as UTF-8 text",
+        )
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -177,6 +278,9 @@ def _read_text(path: Path) -> str:
             f"not UTF-8 text (undecodable byte at offset {exc.start})",
             "save the file as UTF-8 text",
         ) from None
+    # Editors on Windows may start a UTF-8 file with a byte-order mark; TOML does not
+    # allow one, and it carries no information.
+    text = text.removeprefix("\ufeff")
     if not text.strip():
         raise InputError(
             file,
@@ -185,6 +289,42 @@ def _read_text(path: Path) -> str:
             "describe a stack: an [emitter] and a [collector] table and at least one [[layer]]",
         )
     return text
+
+
+def _unreadable(file: str, exc: OSError) -> InputError:
+    return InputError(
+        file, None, f"cannot read the file ({exc.strerror or exc})", "check that the file exists and is readable"
+    )
+
+
+def _check_regular(file: str, info: os.stat_result) -> None:
+    """Refuse a special file (FIFO, device, socket) and a file larger than the limit."""
+    for is_kind, kind in _SPECIAL_FILES:
+        if is_kind(info.st_mode):
+            raise InputError(
+                file,
+                None,
+                f"this is {kind}, not a regular file, so it is not read (it could wait for a "
+                "writer or never end)",
+                "save the stack or campaign to a .toml file and give that path",
+            )
+    if stat.S_ISREG(info.st_mode) and info.st_size > MAX_FILE_BYTES:
+        raise _too_large(file, info.st_size)
+
+
+def _too_large(file: str, size_bytes: int, *, at_least: bool = False) -> InputError:
+    more = "more than " if at_least else ""
+    return InputError(
+        file,
+        None,
+        f"the file is {more}{limits.bytes_text(size_bytes)}, larger than the {limits.bytes_text(MAX_FILE_BYTES)} of the "
+        f"largest stack file (a campaign of {limits.MAX_LAYERS} layers with a comment on every line stays "
+        "under 150 kB), so it is not read",
+        "give the path of the stack or campaign .toml file itself (not a data or log file)",
+    )
+
+
+_LONG_INTEGER = re.compile(r"\d[\d_]{4300,}")
 
 
 def _parse_toml(file: str, text: str) -> dict:
@@ -199,13 +339,35 @@ def _parse_toml(file: str, text: str) -> dict:
         reason = message[: position.start()]
         lines = text.splitlines()
         quoted = lines[line - 1].strip() if 0 < line <= len(lines) else ""
-        near = f" in `{quoted}`" if quoted else ""
+        near = f" in `{quoted[:80]}{'…' if len(quoted) > 80 else ''}`" if quoted else ""
         raise InputError(
             file,
             None,
             f"not valid TOML at line {line}, column {column}{near}: {reason}",
             f"correct line {line}: settings are written key = value, strings in double quotes, "
             "tables as [name], repeated tables as [[name]], and no key is given twice",
+        ) from None
+    except RecursionError:
+        # tomllib reads nested arrays and inline tables recursively; a few hundred
+        # levels exhaust Python's recursion limit. No stack file nests more than three.
+        raise InputError(
+            file,
+            None,
+            "the file nests arrays or inline tables hundreds of levels deep, deeper than the TOML "
+            "reader can follow",
+            "remove the extra brackets: a stack file nests at most three levels, e.g. "
+            'thickness_ml = { min = 4, max = 12 } or material = { choices = ["GaAs", "InAs"] }',
+        ) from None
+    except ValueError as exc:
+        # Python's int() refuses more than 4300 digits (sys.get_int_max_str_digits), which
+        # the TOML grammar allows; tomllib lets that ValueError through.
+        long = _LONG_INTEGER.search(text)
+        where = f" at line {text.count(chr(10), 0, long.start()) + 1}" if long else ""
+        raise InputError(
+            file,
+            None,
+            f"the file holds an integer of more than 4300 digits{where}, more than Python reads ({exc})",
+            "write the number with an exponent, e.g. 1e18, or correct it",
         ) from None
     if not data:
         raise InputError(
@@ -296,10 +458,35 @@ class _Reader:
         )
         self.check_campaign(spec, search_table)
         self.check_model(spec)
+        self.check_doping(spec)
         for key, message in plausibility_warnings(spec):
             self.warn(key, message)
         merged = tuple(f"{', '.join(keys)}: {message}" for message, keys in self.warnings.items())
-        return replace(spec, warnings=merged)
+        spec = replace(spec, warnings=merged)
+        # Last, when every value is known to be valid: refuse a run this machine cannot hold.
+        limits.check_memory(spec)
+        return spec
+
+    def check_doping(self, spec: StackSpec) -> None:
+        """An undoped contact has no Fermi level: refuse it wherever a current is computed."""
+        if not limits.current_is_computed(spec):
+            return  # zero-bias transmission and levels do not depend on the doping
+        for side in ("emitter", "collector"):
+            if getattr(spec, side).doping_cm3 > 0.0:
+                continue
+            if spec.is_campaign:
+                other = "or use only zero-bias metrics (" + ", ".join(
+                    n for n, i in METRICS.items() if not i.needs_iv) + ") in the objectives, constraints and windows"
+            else:
+                other = ("or set steps = 1 in [bias] to compute only the zero-bias transmission and levels, "
+                         "which do not depend on the doping")
+            raise InputError(
+                self.file,
+                f"{side}.doping_cm3",
+                f"doping_cm3 = 0 leaves the {side} without free electrons, so it has no Fermi level, and "
+                "the Tsu–Esaki current of the I–V sweep needs one",
+                f"give the contact's donor density, e.g. doping_cm3 = 2e18, {other}",
+            )
 
     def check_campaign(self, spec: StackSpec, search_table: _Table | None) -> None:
         root = self.root
@@ -384,8 +571,10 @@ class _Reader:
             self._check_user_name(table, name)
             user[name] = {
                 "conduction_band_eV": table.number("conduction_band_eV", example="-3.2"),
-                "mass": table.number("mass", example="0.09", above=0.0),
-                "lattice_nm": table.number("lattice_nm", example="0.5869", above=0.0),
+                "mass": table.number("mass", example="0.09", above=0.0, at_most=MAX_USER_MASS,
+                                     reason=_USER_MASS_REASON),
+                "lattice_nm": table.number("lattice_nm", example="0.5869", above=0.0, at_most=MAX_USER_LATTICE_nm,
+                                           reason=_USER_LATTICE_REASON),
             }
             if table.has("gap_eV"):
                 user[name]["gap_eV"] = table.number("gap_eV", example="1.5", above=0.0)
@@ -484,7 +673,7 @@ class _Reader:
     def layers(self) -> tuple[LayerSpec, ...]:
         def label(index: int, data: dict) -> str:
             name = data.get("name")
-            if isinstance(name, str) and name.strip() and '"' not in name:
+            if isinstance(name, str) and name.strip() and '"' not in name and name.isprintable():
                 return f'layer "{name}"'
             return f"layer[{index}]"
 
@@ -494,6 +683,14 @@ class _Reader:
             example='[[layer]] name = "barrier" material = "AlAs" thickness_ml = 6',
             label=label,
         )
+        if len(tables) > limits.MAX_LAYERS:
+            raise self.root.error(
+                "layer",
+                f"the stack has {len(tables)} layers, more than the {limits.MAX_LAYERS} allowed: "
+                f"{limits.LAYERS_REASON}",
+                f"keep at most {limits.MAX_LAYERS} [[layer]] tables: describe the active region (barriers, "
+                "wells and spacers); thick bulk regions belong to the contacts",
+            )
         if not tables:
             raise self.root.error(
                 "layer",
@@ -509,6 +706,15 @@ class _Reader:
                 raise table.error(
                     "name",
                     "a layer name cannot contain double quotes",
+                    'use letters, digits and "_", e.g. name = "barrier_in"',
+                )
+            control = next((c for c in name if unicodedata.category(c) == "Cc"), None)
+            if control is not None:
+                # Names are printed in tables and stored in netCDF files; a control
+                # character (a NUL ends a C string) garbles or truncates both.
+                raise table.error(
+                    "name",
+                    f"the layer name holds the control character U+{ord(control):04X}",
                     'use letters, digits and "_", e.g. name = "barrier_in"',
                 )
             if name in seen:
@@ -604,14 +810,16 @@ class _Reader:
         if has_nm:
             if isinstance(table.data["thickness_nm"], dict):
                 return None, self.float_range(
-                    table, "thickness_nm", examples=("2.0", "6.0", "0.1"), above=0.0
+                    table, "thickness_nm", examples=("2.0", "6.0", "0.1"), above=0.0, at_most=MAX_LAYER_nm,
+                    reason=_LAYER_REASON,
                 )
-            return None, table.number("thickness_nm", example="1.7", above=0.0)
+            return None, table.number("thickness_nm", example="1.7", above=0.0, at_most=MAX_LAYER_nm,
+                                      reason=_LAYER_REASON)
         value = table.data["thickness_ml"]
         if isinstance(value, dict):
             rng = _Table(self.file, table.key("thickness_ml"), value, ("min", "max"))
-            lo = rng.integer("min", example="4", at_least=1)
-            hi = rng.integer("max", example="12", at_least=1)
+            lo = rng.integer("min", example="4", at_least=1, at_most=MAX_LAYER_ml, reason=_LAYER_REASON)
+            hi = rng.integer("max", example="12", at_least=1, at_most=MAX_LAYER_ml, reason=_LAYER_REASON)
             _check_order(rng, lo, hi)
             return IntRange(lo, hi), None
         if isinstance(value, float) and math.isfinite(value) and not value.is_integer():
@@ -620,7 +828,8 @@ class _Reader:
                 f"thickness_ml = {value:g} is not a whole number of monolayers",
                 f"write thickness_ml = {round(value)} or give the thickness in nanometres with thickness_nm",
             )
-        return table.integer("thickness_ml", example="6", at_least=1), None
+        return table.integer("thickness_ml", example="6", at_least=1, at_most=MAX_LAYER_ml,
+                             reason=_LAYER_REASON), None
 
     def float_range(
         self,
@@ -631,10 +840,11 @@ class _Reader:
         above=None,
         at_least=None,
         at_most=None,
+        reason=None,
     ) -> FloatRange:
         """A ``{ min, max, step? }`` range; ``examples`` of min, max and step for messages."""
         rng = _Table(self.file, table.key(name), table.data[name], ("min", "max", "step"))
-        bounds = dict(above=above, at_least=at_least, at_most=at_most)
+        bounds = dict(above=above, at_least=at_least, at_most=at_most, reason=reason)
         lo = rng.number("min", example=examples[0], **bounds)
         hi = rng.number("max", example=examples[1], **bounds)
         _check_order(rng, lo, hi)
@@ -720,7 +930,8 @@ class _Reader:
         default = BiasSweep()
         from_V = table.number("from_V", default.from_V, example="0.0")
         to_V = table.number("to_V", default.to_V, example="1.0")
-        steps = table.integer("steps", default.steps, example="51", at_least=1)
+        steps = table.integer("steps", default.steps, example="51", at_least=1, at_most=limits.MAX_BIAS_STEPS,
+                              reason=limits.BIAS_REASON)
         if steps > 1 and from_V == to_V:
             raise table.error(
                 "to_V",
@@ -738,7 +949,8 @@ class _Reader:
         default = EnergyGrid()
         from_eV = table.number("from_eV", default.from_eV, example="0.0")
         to_eV = table.number("to_eV", default.to_eV, example="1.0")
-        points = table.integer("points", default.points, example="2001", at_least=2)
+        points = table.integer("points", default.points, example="2001", at_least=2,
+                               at_most=limits.MAX_ENERGY_POINTS, reason=limits.ENERGY_REASON)
         if not to_eV > from_eV:
             raise table.error(
                 "to_eV",
@@ -754,7 +966,8 @@ class _Reader:
         default = ModelSpec()
         nonparabolic = table.boolean("nonparabolic", default.nonparabolic)
         slice_nm = table.number("slice_nm", None, example="0.1", above=0.0) if table.has("slice_nm") else None
-        max_levels = table.integer("max_levels", default.max_levels, example="4", at_least=1)
+        max_levels = table.integer("max_levels", default.max_levels, example="4", at_least=1,
+                                   at_most=limits.MAX_LEVELS, reason=limits.LEVELS_REASON)
         return ModelSpec(nonparabolic, slice_nm, max_levels)
 
     # -- metrics -----------------------------------------------------------------------
@@ -892,8 +1105,11 @@ class _Reader:
             sampler=table.string("sampler", default.sampler, example='"nsga2"', choices=SAMPLERS),
             trials=table.integer("trials", default.trials, example="1000", at_least=1),
             batch=table.integer("batch", default.batch, example="64", at_least=1),
-            seed=table.integer("seed", None, example="1", at_least=0) if table.has("seed") else None,
-            timeout_h=table.number("timeout_h", None, example="8", above=0.0)
+            seed=table.integer("seed", None, example="1", at_least=0, at_most=MAX_SEED, reason=_SEED_REASON)
+            if table.has("seed")
+            else None,
+            timeout_h=table.number("timeout_h", None, example="8", above=0.0, at_most=MAX_TIMEOUT_h,
+                                   reason="a longer time limit is a typo, and overflows the deadline arithmetic")
             if table.has("timeout_h")
             else None,
         )
@@ -925,16 +1141,27 @@ class _Reader:
         _check_unique(window_tables, windows, "tolerance.spec")
         return ToleranceSpec(
             thickness_sigma_ml=table.number(
-                "thickness_sigma_ml", default.thickness_sigma_ml, example="0.5", at_least=0.0
+                "thickness_sigma_ml", default.thickness_sigma_ml, example="0.5", at_least=0.0,
+                at_most=MAX_THICKNESS_SIGMA_ml,
+                reason="a scatter of more than 5 monolayers per interface means that the layer thickness itself "
+                "is unknown, not a growth tolerance (calibrated epitaxy steps by ±1 monolayer, common practice)",
             ),
             growth_rate_sigma=table.number(
-                "growth_rate_sigma", default.growth_rate_sigma, example="0.01", at_least=0.0, at_most=0.5
+                "growth_rate_sigma", default.growth_rate_sigma, example="0.01", at_least=0.0,
+                at_most=MAX_GROWTH_RATE_SIGMA,
+                reason="beyond it the growth-rate factor 1 + eps is negative in more than 2 % of the samples, so "
+                "the growth rate itself is unknown (calibrated epitaxy drifts by 1-2 %, common practice)",
             ),
             fraction_sigma=table.number(
-                "fraction_sigma", default.fraction_sigma, example="0.005", at_least=0.0, at_most=1.0
+                "fraction_sigma", default.fraction_sigma, example="0.005", at_least=0.0,
+                at_most=MAX_FRACTION_SIGMA,
+                reason="a scatter of more than 0.1 spans most of an alloy's range, so the composition itself is "
+                "unknown (epitaxial fractions are known to about 0.005, common practice)",
             ),
-            samples=table.integer("samples", default.samples, example="500", at_least=1),
-            seed=table.integer("seed", default.seed, example="0", at_least=0),
+            samples=table.integer("samples", default.samples, example="500", at_least=1,
+                                  at_most=limits.MAX_TOLERANCE_SAMPLES, reason=limits.SAMPLES_REASON),
+            seed=table.integer("seed", default.seed, example="0", at_least=0, at_most=MAX_SEED,
+                               reason=_SEED_REASON),
             robust=robust,
             windows=windows,
         )
@@ -949,7 +1176,8 @@ class _Reader:
                 'delete quantile, or set statistic = "quantile"',
             )
         return RobustSpec(
-            samples=table.integer("samples", default.samples, example="16", at_least=2),
+            samples=table.integer("samples", default.samples, example="16", at_least=2,
+                                  at_most=limits.MAX_ROBUST_SAMPLES, reason=limits.ROBUST_REASON),
             quantile=table.number("quantile", default.quantile, example="0.1", above=0.0, at_most=0.5)
             if statistic == "quantile"
             else default.quantile,

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import sys
 from collections.abc import Iterable, Mapping
 from typing import Any
 from tunnelsmith.optimize.errors import InputError
@@ -14,7 +15,21 @@ _MISSING = object()
 
 
 def _fmt(value: float) -> str:
+    """A number as ``%g``; an integer in full up to 16 digits, and beyond the double range
+    (TOML integers are unbounded) in the exponent form of ``%g``."""
+    if isinstance(value, int) and abs(value) < 10**16:
+        return str(value)  # a seed or a count reads better in full than as 4.29497e+09
+    if isinstance(value, int) and not _fits_double(value):
+        # As %g would write it: six significant digits, trailing zeros dropped.
+        digits = str(abs(value))
+        mantissa = f"{digits[0]}.{digits[1:6]}".rstrip("0").rstrip(".")
+        return f"{'-' if value < 0 else ''}{mantissa}e+{len(digits) - 1}"
     return f"{value:g}"
+
+
+def _fits_double(value: int) -> bool:
+    """Whether an integer converts to a finite double (``float()`` raises beyond ~1.8e308)."""
+    return abs(value) <= sys.float_info.max
 
 
 def _shown(value: Any) -> str:
@@ -24,9 +39,9 @@ def _shown(value: Any) -> str:
     if isinstance(value, str):
         return f'"{value}" (a string)'
     if isinstance(value, int):
-        return f"{value} (an integer)"
+        return f"{_fmt(value)} (an integer)"
     if isinstance(value, float):
-        return f"{value:g} (a number)"
+        return f"{_fmt(value)} (a number)"
     if isinstance(value, dict):
         return "a table"
     if isinstance(value, list):
@@ -175,8 +190,13 @@ class _Table:
         above: float | None = None,
         at_least: float | None = None,
         at_most: float | None = None,
+        reason: str | None = None,
     ) -> float:
-        """A finite real number, optionally bounded; integers are accepted."""
+        """A finite real number, optionally bounded; integers are accepted.
+
+        ``reason`` says why the upper bound ``at_most`` is there; it is added to the
+        problem when the value exceeds it.
+        """
         present, value = self._value(name, default, example)
         if not present:
             return value
@@ -185,19 +205,35 @@ class _Table:
             if isinstance(value, str) and _looks_numeric(value):
                 fix = f"remove the quotes: {name} = {value.strip()}"
             raise self.error(name, f"expected a number, got {_shown(value)}", fix)
+        if isinstance(value, int) and not _fits_double(value):
+            raise self.error(
+                name,
+                f"{name} = {_fmt(value)} is beyond the range of a double-precision number (about 1.8e308)",
+                f"give a value of sensible size, e.g. {name} = {example}",
+            )
         if not math.isfinite(value):
             raise self.error(
                 name,
                 f"{name} = {value} is not a finite number",
                 f"give a finite value, e.g. {name} = {example}",
             )
-        _check_bounds(self, name, float(value), example, above, at_least, at_most)
+        _check_bounds(self, name, float(value), example, above, at_least, at_most, reason)
         return float(value)
 
     def integer(
-        self, name: str, default: Any = _MISSING, *, example: str, at_least: int | None = None
+        self,
+        name: str,
+        default: Any = _MISSING,
+        *,
+        example: str,
+        at_least: int | None = None,
+        at_most: int | None = None,
+        reason: str | None = None,
     ) -> int:
-        """A whole number; a float with no fractional part (``2e4``) is accepted."""
+        """A whole number; a float with no fractional part (``2e4``) is accepted.
+
+        ``reason`` says why the upper bound ``at_most`` is there (see :meth:`number`).
+        """
         present, value = self._value(name, default, example)
         if not present:
             return value
@@ -208,7 +244,7 @@ class _Table:
             if isinstance(value, str) and _looks_numeric(value):
                 fix = f"remove the quotes and write a whole number, e.g. {name} = {example}"
             raise self.error(name, f"expected a whole number, got {_shown(value)}", fix)
-        _check_bounds(self, name, value, example, None, at_least, None)
+        _check_bounds(self, name, value, example, None, at_least, at_most, reason)
         return value
 
     def string(
@@ -280,7 +316,8 @@ def _looks_numeric(text: str) -> bool:
     return True
 
 
-def _check_bounds(table: _Table, name: str, value: float, example: str, above, at_least, at_most) -> None:
+def _check_bounds(table: _Table, name: str, value: float, example: str, above, at_least, at_most,
+                  reason: str | None = None) -> None:
     if above is not None and not value > above:
         bound = "positive" if above == 0 else f"above {_fmt(above)}"
         raise table.error(
@@ -295,8 +332,9 @@ def _check_bounds(table: _Table, name: str, value: float, example: str, above, a
             f"give a value of at least {_fmt(at_least)}, e.g. {name} = {example}",
         )
     if at_most is not None and value > at_most:
+        because = f": {reason}" if reason else ""
         raise table.error(
             name,
-            f"{name} = {_fmt(value)} is above the largest allowed value {_fmt(at_most)}",
+            f"{name} = {_fmt(value)} is above the largest allowed value {_fmt(at_most)}{because}",
             f"give a value of at most {_fmt(at_most)}, e.g. {name} = {example}",
         )
