@@ -78,3 +78,22 @@ def test_a_leakage_current_is_taken_at_the_intrinsic_bias():
     reference = float(current_density(device, [0.5 * (lo + hi)]).current_density_A_cm2[0, 0])
     assert float(series.values["leakage_A_cm2@0.05V"][0]) == pytest.approx(reference, rel=0.01)
     assert float(series.values["leakage_A_cm2@0.05V"][0]) < leak
+
+
+def test_the_stack_file_key_drives_the_solution(tmp_path):
+    """[model] series_resistance_ohm_cm2 moves the stored curve and the metrics; the
+    intrinsic curve is stored beside it."""
+    from test_guard_inputs import STACK, stack_file
+
+    from tunnelsmith.optimize.inputs.reader import load
+    from tunnelsmith.optimize.results.solution import solve_dataset
+
+    iv = STACK + "\n[bias]\nfrom_V = 0.0\nto_V = 0.8\nsteps = 81\n"
+    plain = solve_dataset(load(stack_file(tmp_path, iv, "plain.toml")))
+    r = 0.03 / float(plain["peak_current_A_cm2"])  # J_peak R = 30 mV
+    series = solve_dataset(load(stack_file(tmp_path, iv + f"\n[model]\nseries_resistance_ohm_cm2 = {r!r}\n",
+                                           "series.toml")))
+    shift = float(series["peak_voltage_V"] - plain["peak_voltage_V"])
+    assert shift == pytest.approx(0.03, abs=0.01)
+    np.testing.assert_allclose(series["intrinsic_current_density"], plain["current_density"], rtol=1e-12)
+    assert "series resistance" in series["current_density"].attrs["long_name"]

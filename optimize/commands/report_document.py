@@ -41,6 +41,7 @@ def report_sections(*, title: str, spec, rows: list[dict], solution, campaign=No
     model = spec.model
     switches = [["setting", "value"], ["nonparabolic", str(model.nonparabolic)],
                 ["slice_nm", _fmt(model.slice_nm) or "default"], ["max_levels", str(model.max_levels)],
+                ["series_resistance_ohm_cm2", _fmt(float(model.series_resistance_ohm_cm2))],
                 ["energy grid", f"{spec.energy.from_eV:g} to {spec.energy.to_eV:g} eV, {spec.energy.points} points"],
                 ["bias sweep", f"{spec.bias.from_V:g} to {spec.bias.to_V:g} V, {spec.bias.steps} steps"]]
     sections.append(("Model switches", switches))

@@ -71,7 +71,7 @@ _BIAS_KEYS = ("from_V", "to_V", "steps")
 _ENERGY_KEYS = ("from_eV", "to_eV", "points")
 
 
-_MODEL_KEYS = ("nonparabolic", "slice_nm", "max_levels")
+_MODEL_KEYS = ("nonparabolic", "slice_nm", "max_levels", "series_resistance_ohm_cm2")
 
 
 _OBJECTIVE_KEYS = ("metric", "goal", "target", "log", "at_bias_V")
@@ -968,7 +968,11 @@ class _Reader:
         slice_nm = table.number("slice_nm", None, example="0.1", above=0.0) if table.has("slice_nm") else None
         max_levels = table.integer("max_levels", default.max_levels, example="4", at_least=1,
                                    at_most=limits.MAX_LEVELS, reason=limits.LEVELS_REASON)
-        return ModelSpec(nonparabolic, slice_nm, max_levels)
+        # Contact and access resistances of real diodes are 1e-8 to 1e-5 Ohm cm^2 (common
+        # practice); the bound only catches a value in the wrong unit.
+        series = table.number("series_resistance_ohm_cm2", default.series_resistance_ohm_cm2, example="2e-7",
+                              at_least=0.0, at_most=1.0)
+        return ModelSpec(nonparabolic, slice_nm, max_levels, series)
 
     # -- metrics -----------------------------------------------------------------------
 

@@ -102,11 +102,13 @@ class EnergyGrid:
 
 @dataclass(frozen=True)
 class ModelSpec:
-    """Model switches: non-parabolic masses, bias slice thickness (nm), levels kept."""
+    """Model switches: non-parabolic masses, bias slice thickness (nm), levels kept, and the
+    area-specific series resistance (Ohm cm^2; 0: the intrinsic curve)."""
 
     nonparabolic: bool = False
     slice_nm: float | None = None
     max_levels: int = 4
+    series_resistance_ohm_cm2: float = 0.0
 
 
 @dataclass(frozen=True)

@@ -21,7 +21,8 @@ def slice_thickness_nm(spec) -> float:
 def evaluate_metrics(spec, device, requests) -> Evaluation:
     """:func:`~tunnelsmith.physics.metrics.evaluate` of ``device`` with every setting of ``spec``."""
     return evaluate(device, list(requests), energy_eV=spec.energy.values, bias_V=spec.bias.values,
-                    max_levels=spec.model.max_levels, slice_nm=slice_thickness_nm(spec))
+                    max_levels=spec.model.max_levels, slice_nm=slice_thickness_nm(spec),
+                    series_resistance_ohm_cm2=spec.model.series_resistance_ohm_cm2)
 
 
 def spec_profile(spec, device, bias_V) -> Profile:

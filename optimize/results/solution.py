@@ -65,6 +65,16 @@ def solve_dataset(spec) -> xr.Dataset:
     if evaluation.current_density_A_cm2 is not None:
         data["current_density"] = (("bias",), _on_sweep(evaluation, bias_V),
                                    {"units": "A/cm2", "long_name": "Tsu-Esaki current density"})
+    if evaluation.intrinsic_current_density_A_cm2 is not None:
+        # With a series resistance `current_density` is what an upward sweep of the applied
+        # bias records; the curve across the active region alone is kept beside it.
+        resistance = spec.model.series_resistance_ohm_cm2
+        data["current_density"][2].update(
+            long_name=f"current density at the applied bias, series resistance {resistance:g} Ohm cm2 "
+                      "(upward sweep)", bistable=int(bool(evaluation.bistable[0])))
+        data["intrinsic_current_density"] = (("bias",), np.asarray(evaluation.intrinsic_current_density_A_cm2)[0],
+                                             {"units": "A/cm2", "long_name": "Tsu-Esaki current density at the "
+                                              "bias across the active region (no series resistance)"})
     for label, values in evaluation.values.items():
         info = metrics_module.CATALOGUE[label.split("@")[0]]
         reason = str(evaluation.reasons[label][0])
