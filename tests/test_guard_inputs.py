@@ -148,3 +148,23 @@ def test_slice_nm_drives_the_current_and_every_metric_not_only_the_transmission(
     # the stored current near the peak voltage (the metric refines the peak between biases).
     at_peak = fine["current_density"].sel(bias=float(fine["peak_voltage_V"]), method="nearest")
     assert float(fine["peak_current_A_cm2"]) == pytest.approx(float(at_peak), rel=0.05)
+
+
+def _pair(tmp_path, contact: str, barrier: str, nonparabolic: bool, name: str) -> list[str]:
+    text = (f'temperature_K = 300.0\n[emitter]\nmaterial = "{contact}"\ndoping_cm3 = 1e18\n'
+            f'[collector]\nmaterial = "{contact}"\ndoping_cm3 = 1e18\n'
+            f'[[layer]]\nname = "b"\nmaterial = "{barrier}"\nthickness_ml = 8\n'
+            f"[model]\nnonparabolic = {'true' if nonparabolic else 'false'}\n")
+    return [w for w in load(stack_file(tmp_path, text, name)).located_warnings if "pair" in w]
+
+
+def test_broken_gap_and_staggered_neighbours_warn_in_nonparabolic_mode(tmp_path):
+    # InAs/GaSb is the textbook broken-gap (type III) pair and InP/In0.52Al0.48As a
+    # staggered (type II) one; In0.53Ga0.47As/AlAs is straddling (type I). Vurgaftman,
+    # Meyer & Ram-Mohan, J. Appl. Phys. 89, 5815 (2001), sec. IV.
+    (broken,) = _pair(tmp_path, "InAs", "GaSb", True, "broken.toml")[:1]
+    assert 'layer "b".material' in broken and "broken-gap (type III)" in broken
+    staggered = _pair(tmp_path, "InP", "In0.52Al0.48As", True, "staggered.toml")
+    assert staggered and "staggered (type II)" in staggered[0]
+    assert _pair(tmp_path, "In0.53Ga0.47As", "AlAs", True, "straddling.toml") == []
+    assert _pair(tmp_path, "InAs", "GaSb", False, "parabolic.toml") == []

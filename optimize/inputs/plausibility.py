@@ -8,6 +8,8 @@ commands print them (exit status 0) and ``--strict`` turns them into errors.
 
 from __future__ import annotations
 
+import numpy as np
+
 from tunnelsmith.optimize.inputs.dimensions import design_count, thickness_span_nm
 from tunnelsmith.optimize.inputs.schema import StackSpec
 
@@ -58,9 +60,69 @@ def plausibility_warnings(spec: StackSpec) -> list[tuple[str, str]]:
                 found.append((f"objective[{index}].target", f"the target {_fmt(objective.target)} eV lies outside "
                               f"the energy window {_fmt(spec.energy.from_eV)} to {_fmt(spec.energy.to_eV)} eV, "
                               "where no resonance is ever found"))
+    if spec.model.nonparabolic:
+        found += _band_alignment_warnings(spec)
     if spec.is_campaign:
         count = design_count(spec)
         if count is not None and spec.search.trials > count:
             found.append(("search.trials", f"trials = {spec.search.trials} is more than the {count} distinct designs "
                           "of the search space; the search repeats designs"))
+    return found
+
+
+def _candidates(spec, material, fraction) -> list[tuple[str, float | None]]:
+    """Every (material, fraction) a layer or contact can take (range ends for fractions)."""
+    from tunnelsmith.optimize.inputs.schema import Choices, FloatRange
+
+    names = material.values if isinstance(material, Choices) else (material,)
+    fractions = [fraction.min, fraction.max] if isinstance(fraction, FloatRange) else [fraction]
+    return [(name, x) for name in names for x in fractions]
+
+
+def _band_alignment_warnings(spec: StackSpec) -> list[tuple[str, str]]:
+    """Neighbours whose gaps overlap in a staggered or broken-gap way, in non-parabolic mode.
+
+    The two-band (Kane) non-parabolic mass of the model describes a conduction band above
+    its own valence band; where the conduction band of one layer lies inside or below the
+    valence band of its neighbour (broken gap, type III) or both band edges of one layer lie
+    above those of the other (staggered, type II), interband tunnelling that the model
+    leaves out decides the current (Vurgaftman, Meyer & Ram-Mohan, J. Appl. Phys. 89, 5815,
+    2001, sec. IV, for the alignments).
+    """
+    import warnings
+
+    from tunnelsmith.physics import materials
+
+    sides = [("emitter", spec.emitter.material, spec.emitter.fraction)]
+    sides += [(f'layer "{layer.name}"', layer.material, layer.fraction) for layer in spec.layers]
+    sides.append(("collector", spec.collector.material, spec.collector.fraction))
+    edges = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for key, material, fraction in sides:
+            values = []
+            for name, x in _candidates(spec, material, fraction):
+                try:
+                    record = materials.material(name, spec.temperature_K, fraction=x, user=spec.user_materials)
+                except (KeyError, ValueError):
+                    continue
+                if np.isfinite(record.gap_eV):
+                    values.append((name if x is None else f"{name} (x = {x:g})", record.conduction_band_eV,
+                                   record.conduction_band_eV - record.gap_eV))
+            edges.append((key, values))
+    found, seen = [], set()
+    for (key_a, a_values), (key_b, b_values) in zip(edges, edges[1:]):
+        for name_a, ec_a, ev_a in a_values:
+            for name_b, ec_b, ev_b in b_values:
+                if (name_a, name_b) in seen or name_a == name_b:
+                    continue
+                broken = ec_a < ev_b or ec_b < ev_a
+                staggered = (ec_a - ec_b) * (ev_a - ev_b) > 0
+                if broken or staggered:
+                    seen.add((name_a, name_b))
+                    kind = "a broken-gap (type III)" if broken else "a staggered (type II)"
+                    found.append((f"{key_b}.material", f"{name_a} next to {name_b} is {kind} pair; with [model] "
+                                  "nonparabolic = true the two-band mass assumes a conduction band above its own "
+                                  "valence band, and interband tunnelling is not modelled (Vurgaftman et al., "
+                                  "J. Appl. Phys. 89, 5815, 2001)"))
     return found
