@@ -102,6 +102,8 @@ def _band_alignment_warnings(spec: StackSpec) -> list[tuple[str, str]]:
         for key, material, fraction in sides:
             values = []
             for name, x in _candidates(spec, material, fraction):
+                if name in spec.user_materials:
+                    continue  # a user material's valence band is not known (its gap only sets the mass)
                 try:
                     record = materials.material(name, spec.temperature_K, fraction=x, user=spec.user_materials)
                 except (KeyError, ValueError):
