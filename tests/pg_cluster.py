@@ -16,6 +16,7 @@ import shutil
 import socket
 import subprocess
 import tempfile
+import time
 from pathlib import Path
 
 import pytest
@@ -65,17 +66,35 @@ class Cluster:
             shutil.chown(self.root, "postgres")
             self.as_user = ["runuser", "-u", "postgres", "--"]
         self._run("initdb", "-D", str(self.data), "-U", ROLE, "--auth=trust", "--no-sync", "-E", "UTF8")
-        self._run(
-            "pg_ctl", "-D", str(self.data), "-l", str(self.root / "server.log"), "-w", "-t", "60",
-            "-o", f"-h 127.0.0.1 -p {self.port} -k {self.root} -c fsync=off -c max_connections=60",
-            "start",
-        )
+        self.start_server()
         self._run("createdb", "-h", "127.0.0.1", "-p", str(self.port), "-U", ROLE, DATABASE)
         self.url = f"postgresql+psycopg://{ROLE}@127.0.0.1:{self.port}/{DATABASE}"
 
     def _run(self, tool: str, *args: str) -> None:
         subprocess.run([*self.as_user, str(self.bindir / tool), *args], check=True,
                        stdout=subprocess.PIPE, stderr=subprocess.STDOUT, cwd=self.root)
+
+    def start_server(self) -> None:
+        """Start the server on the cluster's port and wait until it accepts connections."""
+        self._run(
+            "pg_ctl", "-D", str(self.data), "-l", str(self.root / "server.log"), "-w", "-t", "60",
+            "-o", f"-h 127.0.0.1 -p {self.port} -k {self.root} -c fsync=off -c max_connections=60",
+            "start",
+        )
+
+    def stop_server(self) -> None:
+        """Stop the server the way an administrator's restart does (``pg_ctl stop -m fast``).
+
+        Every open session is ended with "terminating connection due to administrator
+        command" and every new connection is refused until :meth:`start_server`.
+        """
+        self._run("pg_ctl", "-D", str(self.data), "-m", "fast", "-w", "-t", "60", "stop")
+
+    def restart(self, down_s: float) -> None:
+        """Stop the server, keep it down for ``down_s`` seconds, start it again."""
+        self.stop_server()
+        time.sleep(down_s)
+        self.start_server()
 
     def stop(self) -> None:
         try:

@@ -96,15 +96,31 @@ in the study, even for workers started together), so workers and resumed runs do
 repeat each other's designs; a single fresh run is reproducible.
 
 Optuna beats hearts only inside ``study.optimize``; this loop keeps its own. A daemon
-thread records a heartbeat every :data:`HEARTBEAT_INTERVAL_S` seconds: per running
-trial through ``RDBStorage.record_heartbeat`` on a database, and per worker as a study
-system attribute on the journal (Optuna 5's journal storage has no heartbeat support).
+thread records a heartbeat every :data:`HEARTBEAT_INTERVAL_S` seconds: per worker as a
+study system attribute (Optuna 5's journal storage has no heartbeat support), and on a
+database also per running trial through ``RDBStorage.record_heartbeat``.
 Before each batch a worker fails the running trials of other workers that are stale —
 no heartbeat for :data:`GRACE_PERIOD_S` seconds, or (on this host) whose process is
 gone — and enqueues their parameters once more (user attribute ``retry_of``; at most
 :data:`MAX_RETRIES` retries of one design). On a database the first part is Optuna's
-``fail_stale_trials``. Both periods can be set with the environment variables
-``TUNNELSMITH_HEARTBEAT_S`` and ``TUNNELSMITH_GRACE_S``.
+``fail_stale_trials``, and a worker's own beat, watched on the local clock, catches the
+trials whose heartbeat never reached the database. Both periods can be set with the
+environment variables ``TUNNELSMITH_HEARTBEAT_S`` and ``TUNNELSMITH_GRACE_S``.
+
+Database outages
+----------------
+A restart of the database server (or a fail-over) does not end a campaign. Every
+storage call that loses its connection waits for the server and is tried again, after
+0.5 s, doubling up to 10 s (:class:`~tunnelsmith.optimize.search.storage.OutageTolerantRDBStorage`,
+one place for every call of the loop); the worker says once that it waits and once that
+the database is back, then goes on. Heartbeats are tried once per beat and never stall
+or end the worker. When the database has not answered for
+:data:`~tunnelsmith.optimize.search.storage.DB_OUTAGE_S` seconds (120, or the environment
+variable ``TUNNELSMITH_DB_OUTAGE_S``) the worker stops with exit status 1 and one
+paragraph naming the storage (password removed), the wait and the fix; it fails its
+running trials if the database answers for that, and otherwise leaves them to the
+heartbeat check of the next worker, which retries them. Running the same command again
+resumes: no finished trial is lost.
 
 A worker held up for longer than the grace period (a scheduler suspending its job with
 SIGSTOP and resuming it with SIGCONT) wakes to find its running trials failed and their
@@ -145,11 +161,11 @@ from tunnelsmith.optimize.io import write_text
 from tunnelsmith.optimize.errors import EXIT_INTERRUPTED, EXIT_OK
 from tunnelsmith.optimize.search.layout import CAMPAIGN_COPY
 from tunnelsmith.optimize.search.progress import _Progress, _Tally
-from tunnelsmith.optimize.search.records import ATTR_DESIGN, ATTR_FAILURE, ATTR_METRICS, ATTR_REASONS, INTERNAL_ERROR, INTERRUPTED, SURPLUS, SYSTEM_WORKER, counts_toward_budget
+from tunnelsmith.optimize.search.records import ATTR_DESIGN, ATTR_FAILURE, ATTR_METRICS, ATTR_REASONS, INTERNAL_ERROR, INTERRUPTED, ORPHANED, SURPLUS, SYSTEM_WORKER, counts_toward_budget
 from tunnelsmith.optimize.search.sampler import make_sampler
 from tunnelsmith.optimize.search.storage import GRACE_PERIOD_S, CoalescingJournalStorage, _is_rdb, open_storage
 from tunnelsmith.optimize.search.study import open_study
-from tunnelsmith.optimize.search.workers import _Heartbeat, _new_worker_id, _retry_stale, _start_workers, _stop_workers, _wait_workers, _worker_seed, recover_stale_trials
+from tunnelsmith.optimize.search.workers import _BeatSilence, _Heartbeat, _new_worker_id, _retry_stale, _start_workers, _stop_workers, _wait_workers, _worker_seed, recover_stale_trials
 from tunnelsmith.optimize.search.workers import _StopRequest, _PARENT_GONE, _parent_to_watch, _watch_parent
 
 
@@ -180,6 +196,7 @@ class _Worker:
         self.distributions = space.distributions(self.spec)
         self.in_flight: list[optuna.Trial] = []
         self.lost = 0
+        self.silence = _BeatSilence()  # how long other workers' beats have not changed
 
     # -- asking -------------------------------------------------------------------------
 
@@ -210,10 +227,13 @@ class _Worker:
                 new_ids = self.storage.create_trials(self.study._study_id, rest, {SYSTEM_WORKER: self.worker_id})
             else:
                 # What study.ask does without its scan for queued trials (done above),
-                # which on a database re-reads every running trial on every ask.
+                # which on a database re-reads every running trial on every ask. Through
+                # the study's storage, as study.ask does: on a database that is Optuna's
+                # cache, which must know a trial before its parameters are suggested
+                # (a sampler that reads no trials, such as random, would not teach it).
                 template = optuna.trial.create_trial(state=TrialState.RUNNING,
                                                      system_attrs={SYSTEM_WORKER: self.worker_id})
-                new_ids = [self.storage.create_new_trial(self.study._study_id, template_trial=template)
+                new_ids = [self.study._storage.create_new_trial(self.study._study_id, template_trial=template)
                            for _ in range(rest)]
             if new_ids and not self._seeded:
                 self._reseed(self.storage.get_trial_number_from_id(new_ids[0]))
@@ -315,8 +335,30 @@ class _Worker:
                 self._finish(trial, state=TrialState.FAIL)
 
     def abandon_in_flight(self, reason: str) -> None:
-        """Leave no trial of this worker running."""
+        """Leave no trial of this worker running: those it holds and any stray ones."""
         self._abandon(self.in_flight, reason)
+        self._fail_strays(self.study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)), reason)
+
+    def _fail_strays(self, trials: list[optuna.trial.FrozenTrial], reason: str) -> int:
+        """Fail the running trials of this worker that it does not hold; returns how many.
+
+        A trial creation retried after the database connection was lost can have been
+        committed by the attempt whose reply was lost: that first trial is this worker's,
+        has no parameters and no heartbeat, and would hold a place of the budget for
+        ever. Between batches a worker holds no trial, so every running one it owns is
+        such a stray.
+        """
+        held = {t._trial_id for t in self.in_flight}
+        strays = [t for t in trials if t.state == TrialState.RUNNING and t._trial_id not in held
+                  and t.system_attrs.get(SYSTEM_WORKER) == self.worker_id]
+        with self._commit():
+            for trial in strays:
+                try:
+                    self.storage.set_trial_user_attr(trial._trial_id, ATTR_FAILURE, reason)
+                    self.storage.set_trial_state_values(trial._trial_id, TrialState.FAIL)
+                except UpdateFinishedTrialError:
+                    pass  # failed as stale by another worker meanwhile
+        return len(strays)
 
     def _tell(self, trials: list[optuna.Trial], batch, result) -> None:
         names = batch.material_names()
@@ -358,7 +400,8 @@ class _Worker:
             if self.deadline is not None and time.monotonic() >= self.deadline:
                 return "timeout"
             trials = self.study.get_trials(deepcopy=False)
-            if recover_stale_trials(self.study, self.storage, self.worker_id, trials):
+            recovered = recover_stale_trials(self.study, self.storage, self.worker_id, trials, self.silence)
+            if self._fail_strays(trials, ORPHANED) + recovered:
                 trials = self.study.get_trials(deepcopy=False)
             self.tally.update(trials)
             self.progress.update(self.tally)

@@ -46,15 +46,18 @@ SURPLUS = "surplus: the budget was reached by other workers"
 INTERNAL_ERROR = "internal error"
 
 
-_NOT_COUNTED = (INTERRUPTED, SURPLUS, INTERNAL_ERROR)
+ORPHANED = "orphaned: created twice by a database call retried after a lost connection"
+
+
+_NOT_COUNTED = (INTERRUPTED, SURPLUS, INTERNAL_ERROR, ORPHANED)
 
 
 def counts_toward_budget(trial: FrozenTrial) -> bool:
     """Whether a trial is *finished* in the sense of the campaign budget.
 
     ``COMPLETE`` trials, and ``FAIL`` trials whose evaluation failed (they carry the
-    reason in user attribute ``"failure"``). Trials interrupted, surplus, lost with
-    their worker (failed without a reason) or still running do not count.
+    reason in user attribute ``"failure"``). Trials interrupted, surplus, orphaned, lost
+    with their worker (failed without a reason) or still running do not count.
     """
     if trial.state == TrialState.COMPLETE:
         return True

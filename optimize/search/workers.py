@@ -49,6 +49,11 @@ def _local_worker_gone(worker_id: str) -> bool:
 class _Heartbeat:
     """Daemon thread recording this worker's heartbeat every :data:`HEARTBEAT_INTERVAL_S`.
 
+    A beat is a study system attribute naming the worker (both storages) and, on a
+    database, Optuna's heartbeat of every tracked trial. Each beat is tried once, also
+    while the database does not answer: a missed beat is made up by the next one, and the
+    grace period covers several, so an outage never stalls or ends this thread.
+
     Parameters
     ----------
     storage, study_id, worker_id
@@ -67,6 +72,7 @@ class _Heartbeat:
         self._storage, self._study_id, self._worker_id = storage, study_id, worker_id
         self._parent_pid, self._on_orphaned = parent_pid, on_orphaned
         self._trial_ids: set[int] = set()
+        self._missed = 0  # beats missed in a row; the first and the recovery are reported
         self._lock = threading.Lock()
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, name="tunnelsmith-heartbeat", daemon=True)
@@ -88,16 +94,34 @@ class _Heartbeat:
             self._trial_ids.difference_update(trial_ids)
 
     def beat(self) -> None:
+        """Record one beat; a failure is reported (once for a run of them), never raised."""
+        # A storage that waits out database outages is told not to wait here: the
+        # heartbeat thread must keep its rhythm, and the main thread waits anyway.
+        once = getattr(self._storage, "single_attempt", contextlib.nullcontext)
         try:
-            if _is_rdb(self._storage):
-                with self._lock:
-                    ids = sorted(self._trial_ids)
-                for trial_id in ids:
-                    self._storage.record_heartbeat(trial_id)
-            else:
+            with once():
+                if _is_rdb(self._storage):
+                    with self._lock:
+                        ids = sorted(self._trial_ids)
+                    for trial_id in ids:
+                        self._storage.record_heartbeat(trial_id)
+                # On a database too: a trial whose own heartbeat never reached the
+                # database (it went away right after creating the trial) is still
+                # recognised as stale by the silence of its worker.
                 self._storage.set_study_system_attr(self._study_id, _BEAT_PREFIX + self._worker_id, time.time())
         except Exception as error:  # a missed beat is retried; the grace period covers several
-            print(f"warning: heartbeat not recorded ({type(error).__name__}: {error})", file=sys.stderr)
+            with self._lock:
+                self._missed += 1
+                first = self._missed == 1
+            if first:
+                reason = getattr(error, "reason", None) or f"{type(error).__name__}: {error}"
+                print(f"warning: heartbeat not recorded ({reason}); trying again every {HEARTBEAT_INTERVAL_S} s",
+                      file=sys.stderr, flush=True)
+            return
+        with self._lock:
+            missed, self._missed = self._missed, 0
+        if missed:
+            print(f"note: heartbeat recorded again after {missed} missed", file=sys.stderr, flush=True)
 
     def _run(self) -> None:
         while not self._stop.wait(HEARTBEAT_INTERVAL_S):
@@ -184,14 +208,41 @@ def _started_s(trial: FrozenTrial) -> float:
     return trial.datetime_start.timestamp() if trial.datetime_start is not None else time.time()
 
 
-def recover_stale_trials(study, storage, worker_id: str, trials: list[FrozenTrial]) -> int:
+class _BeatSilence:
+    """How long each worker's beat has stayed unchanged, as this process has watched it.
+
+    Measured on this process's monotonic clock from the moment it first saw a beat's
+    current value, so the clocks of different hosts are never compared (a database
+    shared across hosts); a process that has just started waits a whole grace period
+    before it calls a worker silent.
+    """
+
+    def __init__(self) -> None:
+        self._seen: dict[str, tuple[Any, float]] = {}
+
+    def silent_s(self, owner: str, beat) -> float:
+        """Seconds since ``owner``'s beat last changed (0 when it changed since the last look)."""
+        now_s = time.monotonic()
+        seen = self._seen.get(owner)
+        if seen is None or seen[0] != beat:
+            self._seen[owner] = (beat, now_s)
+            return 0.0
+        return now_s - seen[1]
+
+
+def recover_stale_trials(study, storage, worker_id: str, trials: list[FrozenTrial],
+                         silence: _BeatSilence | None = None) -> int:
     """Fail the running trials of dead workers and enqueue their parameters again.
 
     A running trial of another worker is stale when its worker process is gone (same
     host), when its worker has not beaten for :data:`GRACE_PERIOD_S` (journal), when no
     worker ever claimed it within that time, or (database) when Optuna's heartbeat
-    check finds it stale. Each stale trial is failed once — a worker that loses the race
-    to fail it does not retry it — and enqueued again. Returns the number failed here.
+    check finds it stale, or when ``silence`` (kept by the caller from one call to the
+    next) has seen the worker's own beat unchanged for :data:`GRACE_PERIOD_S` — which
+    catches trials whose own heartbeat never reached the database, such as those a
+    worker created just before the database went away and it gave up. Each stale trial
+    is failed once — a worker that loses the race to fail it does not retry it — and
+    enqueued again. Returns the number failed here.
     """
     now = time.time()
     rdb = _is_rdb(storage)
@@ -213,6 +264,14 @@ def recover_stale_trials(study, storage, worker_id: str, trials: list[FrozenTria
                 beats = storage.get_study_system_attrs(study._study_id)
             last = beats.get(_BEAT_PREFIX + owner, _started_s(trial))
             if now - last > GRACE_PERIOD_S:
+                stale.append(trial)
+        elif silence is not None:
+            if beats is None:
+                beats = storage.get_study_system_attrs(study._study_id)
+            # A worker without a beat of its own (an older version) is left to Optuna's
+            # heartbeat check below.
+            beat = beats.get(_BEAT_PREFIX + owner)
+            if beat is not None and silence.silent_s(owner, beat) > GRACE_PERIOD_S:
                 stale.append(trial)
     failed = 0
     for trial in stale:
