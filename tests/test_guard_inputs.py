@@ -168,3 +168,17 @@ def test_broken_gap_and_staggered_neighbours_warn_in_nonparabolic_mode(tmp_path)
     assert staggered and "staggered (type II)" in staggered[0]
     assert _pair(tmp_path, "In0.53Ga0.47As", "AlAs", True, "straddling.toml") == []
     assert _pair(tmp_path, "InAs", "GaSb", False, "parabolic.toml") == []
+
+
+def test_tolerance_samples_on_the_command_line_obey_the_file_bounds(tmp_path):
+    from tunnelsmith.optimize.inputs import limits
+
+    stack = CAMPAIGNS / "filter_tolerance.toml"
+    result = tunnelsmith("tolerance", stack, "--samples", str(10 * limits.MAX_TOLERANCE_SAMPLES), "--out",
+                         tmp_path / "t", cwd=tmp_path)
+    assert result.returncode == 2 and "--samples" in result.stderr and "Traceback" not in result.stderr
+    assert not (tmp_path / "t" / "tolerance.nc").exists()
+    # The memory estimate counts the command-line samples: 10^7 samples do not fit in 1 GiB.
+    with pytest.raises(InputError):
+        limits.check_memory(load(stack), samples=limits.MAX_TOLERANCE_SAMPLES, available_bytes=2**30)
+    limits.check_memory(load(stack), samples=1000, available_bytes=2**30)

@@ -10,7 +10,7 @@ from tunnelsmith.optimize.errors import InputError
 from tunnelsmith.optimize.model.stack import nominal_batch
 from tunnelsmith.optimize.results.tolerance import run_study, tolerance_dataset
 from tunnelsmith.optimize.results.tolerance import summary_table
-from tunnelsmith.optimize.inputs import reader
+from tunnelsmith.optimize.inputs import limits, reader
 from tunnelsmith.optimize.commands.front_design import load_front_design
 
 
@@ -99,6 +99,13 @@ def run_tolerance(target, *, design: int | None = None, samples: int | None = No
         print(f"warning: {warning}", file=sys.stderr)
 
     progress = _ProgressBar("growth samples", quiet)
+    if samples is not None:
+        # --samples overrides the file's [tolerance] samples: the same bounds apply to it.
+        if samples > limits.MAX_TOLERANCE_SAMPLES:
+            raise InputError("command line", "--samples", f"{samples} growth samples are more than the "
+                             f"{limits.MAX_TOLERANCE_SAMPLES} a yield can use ({limits.SAMPLES_REASON})",
+                             f"give at most --samples {limits.MAX_TOLERANCE_SAMPLES}")
+        limits.check_memory(spec, samples=samples)
     study = run_study(spec, nominal, samples=samples, progress=progress, source=source)
     dataset = tolerance_dataset(study)
     if design is not None:
