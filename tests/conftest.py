@@ -131,3 +131,42 @@ def wait_for_finished(run_dir: Path, name: str, count: int, process: subprocess.
                 return
         time.sleep(0.2)
     raise AssertionError(f"fewer than {count} finished trials after {timeout} s")
+
+
+# An invented GaAs / Al0.3Ga0.7As double barrier (both direct-gap: no material warning).
+#: Guard-rail and audit tests start from it.
+STACK = """temperature_K = 300.0
+
+[emitter]
+material = "GaAs"
+doping_cm3 = 2e18
+
+[collector]
+material = "GaAs"
+doping_cm3 = 2e18
+
+[[layer]]
+name = "barrier_in"
+material = "Al0.3Ga0.7As"
+thickness_ml = 10
+
+[[layer]]
+name = "well"
+material = "GaAs"
+thickness_ml = 16
+
+[[layer]]
+name = "barrier_out"
+like = "barrier_in"
+
+[energy]
+from_eV = 0.0
+to_eV = 0.6
+points = 201
+"""
+
+
+def stack_file(tmp_path, text: str = STACK, name: str = "stack.toml"):
+    path = tmp_path / name
+    path.write_text(text, encoding="utf-8")
+    return path

@@ -8,48 +8,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conftest import CAMPAIGNS, small_campaign, tunnelsmith, write_campaign
+from conftest import CAMPAIGNS, STACK, small_campaign, stack_file, tunnelsmith, write_campaign
 
 from tunnelsmith.optimize.errors import InputError
 from tunnelsmith.optimize.inputs.reader import load
-
-# An invented GaAs / Al0.3Ga0.7As double barrier (both direct-gap: no material warning).
-STACK = """temperature_K = 300.0
-
-[emitter]
-material = "GaAs"
-doping_cm3 = 2e18
-
-[collector]
-material = "GaAs"
-doping_cm3 = 2e18
-
-[[layer]]
-name = "barrier_in"
-material = "Al0.3Ga0.7As"
-thickness_ml = 10
-
-[[layer]]
-name = "well"
-material = "GaAs"
-thickness_ml = 16
-
-[[layer]]
-name = "barrier_out"
-like = "barrier_in"
-
-[energy]
-from_eV = 0.0
-to_eV = 0.6
-points = 201
-"""
-
-
-def stack_file(tmp_path, text: str = STACK, name: str = "stack.toml"):
-    path = tmp_path / name
-    path.write_text(text, encoding="utf-8")
-    return path
-
 
 def warnings_of(tmp_path, text: str) -> list[str]:
     return list(load(stack_file(tmp_path, text)).located_warnings)

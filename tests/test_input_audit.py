@@ -16,53 +16,19 @@ from pathlib import Path
 
 import pytest
 from conftest import CAMPAIGNS, small_campaign, tunnelsmith, write_campaign
+from conftest import STACK as GAAS_STACK
+from conftest import stack_file as write_stack_file
 from tunnelsmith.optimize.errors import InputError
 from tunnelsmith.optimize.inputs.reader import load
 
 DATA = Path(__file__).parent / "data"
 
-# An invented GaAs / Al0.3Ga0.7As double barrier with an I–V sweep (both direct-gap, so
-# the file loads without a material warning).
-STACK = """temperature_K = 300.0
-
-[emitter]
-material = "GaAs"
-doping_cm3 = 2e18
-
-[collector]
-material = "GaAs"
-doping_cm3 = 2e18
-
-[[layer]]
-name = "barrier_in"
-material = "Al0.3Ga0.7As"
-thickness_ml = 10
-
-[[layer]]
-name = "well"
-material = "GaAs"
-thickness_ml = 16
-
-[[layer]]
-name = "barrier_out"
-like = "barrier_in"
-
-[energy]
-from_eV = 0.0
-to_eV = 0.6
-points = 201
-
-[bias]
-from_V = 0.0
-to_V = 0.5
-steps = 11
-"""
+# The shared invented GaAs / Al0.3Ga0.7As double barrier, with an I–V sweep.
+STACK = GAAS_STACK + "\n[bias]\nfrom_V = 0.0\nto_V = 0.5\nsteps = 11\n"
 
 
 def stack_file(tmp_path: Path, text: str = STACK, name: str = "stack.toml") -> Path:
-    path = tmp_path / name
-    path.write_text(text, encoding="utf-8")
-    return path
+    return write_stack_file(tmp_path, text, name)
 
 
 def refused(path) -> InputError:

@@ -83,7 +83,7 @@ def test_a_leakage_current_is_taken_at_the_intrinsic_bias():
 def test_the_stack_file_key_drives_the_solution(tmp_path):
     """[model] series_resistance_ohm_cm2 moves the stored curve and the metrics; the
     intrinsic curve is stored beside it."""
-    from test_guard_inputs import STACK, stack_file
+    from conftest import STACK, stack_file
 
     from tunnelsmith.optimize.inputs.reader import load
     from tunnelsmith.optimize.results.solution import solve_dataset
