@@ -34,7 +34,7 @@ def run_export(run_dir, *, design: int | None, out_dir=None, storage: str | None
         raise InputError(str(run_dir), None, "export takes a campaign run directory",
                          "give the directory `tunnelsmith optimize` wrote, with --design N (a trial on its front)")
     out = Path(out_dir) if out_dir is not None else run_dir / f"design-{design}"
-    spec, stack_path = design_stack_spec(run_dir, design, storage, out)
+    spec, stack_path, _ = design_stack_spec(run_dir, design, storage, out)
     try:
         rows = growth_rows(spec, nominal_batch(spec), substrate_side=substrate_side,
                            growth_rate_ml_s=growth_rate_ml_s)

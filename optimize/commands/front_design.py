@@ -82,10 +82,11 @@ def design_stack_spec(run_dir: Path, design, storage, out_dir: Path):
 
     Returns
     -------
-    (StackSpec, Path)
-        The stack spec (every value fixed) and the file written.
+    (StackSpec, Path, StackSpec)
+        The stack spec (every value fixed), the file written, and the campaign spec the
+        design came from (its objectives and constraints).
     """
     out_dir = Path(out_dir)
     campaign, nominal = load_front_design(Path(run_dir), design, storage, out_dir)
     path = write_text(out_dir / STACK_NAME, stack_toml(campaign, nominal, source=f"design {design} of {run_dir}"))
-    return reader.load(path), path
+    return reader.load(path), path, campaign

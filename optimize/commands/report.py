@@ -6,7 +6,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from tunnelsmith.optimize.commands.front_design import design_stack_spec, load_front_design
+from tunnelsmith.optimize.commands.front_design import design_stack_spec
 from tunnelsmith.optimize.commands.report_document import report_html, report_sections, write_report_pdf
 from tunnelsmith.optimize.errors import EXIT_OK, InputError
 from tunnelsmith.optimize.inputs import reader
@@ -34,8 +34,7 @@ def run_report(target, *, design: int | None = None, out_dir=None, storage: str 
     campaign = None
     if target.is_dir():
         out = Path(out_dir) if out_dir is not None else target / f"design-{design}" / "report"
-        spec, _ = design_stack_spec(target, design, storage, out)
-        campaign, _ = load_front_design(target, design, storage, out)
+        spec, _, campaign = design_stack_spec(target, design, storage, out)
         title = f"Design report: design {design} of {target}"
     else:
         if design is not None:
@@ -57,8 +56,9 @@ def run_report(target, *, design: int | None = None, out_dir=None, storage: str 
     tolerance_text = None
     if spec.tolerance is not None and spec.tolerance.windows:
         study = run_study(spec, nominal, samples=samples, source=title)
-        write_netcdf(tolerance_dataset(study), out / "tolerance.nc")
-        figures += list(plot_tolerance(tolerance_dataset(study), out))
+        dataset = tolerance_dataset(study)
+        write_netcdf(dataset, out / "tolerance.nc")
+        figures += list(plot_tolerance(dataset, out))
         tolerance_text = summary_table(study)
     sections = report_sections(title=title, spec=spec, rows=growth_rows(spec, nominal), solution=solution,
                                campaign=campaign, tolerance_text=tolerance_text)

@@ -22,7 +22,7 @@ def run_solve(stack_path: Path, *, out_dir: Path | None = None, design: int | No
     stack_path = Path(stack_path)
     if stack_path.is_dir():
         out_dir = Path(out_dir) if out_dir is not None else Path("runs") / f"{stack_path.name}-design-{design}"
-        spec, written = design_stack_spec(stack_path, design, storage, out_dir)
+        spec, written, _ = design_stack_spec(stack_path, design, storage, out_dir)
         print(f"design {design} of {stack_path} as a stack file: {written}", file=sys.stderr)
     else:
         if design is not None:
