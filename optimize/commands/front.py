@@ -8,7 +8,7 @@ from pathlib import Path
 import xarray as xr
 
 from tunnelsmith.optimize.commands.outputs import rebuild_outputs
-from tunnelsmith.optimize.results.choice import apply_pick, mirror_of, parse_pick
+from tunnelsmith.optimize.results.choice import apply_pick, parse_pick
 from tunnelsmith.optimize.results.front import design_lines
 
 
@@ -25,9 +25,9 @@ def rebuild_front(run_dir, storage: str | None = None, quiet: bool = False, pick
     if chosen is not None:
         front = xr.load_dataset(Path(run_dir) / "front.nc")
         order = apply_pick(front, chosen)
-        twins = mirror_of(front)
+        twins = front["mirror_of"].values  # trial number of the twin, or -1
         print(f'{len(order)} of {front.sizes.get("design", 0)} front designs pass "{chosen.text}":')
         for d in order:
-            note = f" (mirror image of trial {int(front['design'].values[twins[d]])})" if twins[d] >= 0 else ""
+            note = f" (mirror image of trial {int(twins[d])})" if twins[d] >= 0 else ""
             print("\n".join(design_lines(front, int(d), note)))
     return 0

@@ -508,7 +508,7 @@ def summary_table(spec, front_ds: xr.Dataset, trials_ds: xr.Dataset | None = Non
     Order: :func:`~tunnelsmith.optimize.results.choice.balanced_order` (distance to the
     ideal point); mirror-image twins of a design already listed are left out and counted.
     """
-    from tunnelsmith.optimize.results.choice import balanced_order, best_of_each_objective, mirror_of
+    from tunnelsmith.optimize.results.choice import balanced_order, best_of_each_objective
 
     n_front = front_ds.sizes.get("design", 0)
     attrs = front_ds.attrs
@@ -520,7 +520,7 @@ def summary_table(spec, front_ds: xr.Dataset, trials_ds: xr.Dataset | None = Non
         lines.append("  no feasible design yet")
         return "\n".join(lines)
     labels = [str(x) for x in front_ds["objective"].values]
-    twins = mirror_of(front_ds)
+    twins = np.asarray(front_ds["mirror_of"].values)  # trial number of the twin listed first, or -1
     balanced = balanced_order(front_ds)
     notes = {int(balanced[0]): " (balanced: nearest the ideal point)"}
     for k, d in enumerate(best_of_each_objective(front_ds)):
